@@ -1,0 +1,34 @@
+# LossLedger: `make demo` to try it, `make test` to check it. Needs only Python 3.11+.
+PYTHON ?= python3
+VENV := .venv
+PY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed-stamp
+
+.PHONY: install demo serve test test-fast bench migrate clean
+
+$(STAMP): pyproject.toml
+	@$(PYTHON) -c 'import sys; sys.exit(0 if sys.version_info >= (3, 11) else "LossLedger needs Python 3.11 or newer")'
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e '.[test]'
+	@touch $(STAMP)
+
+install: $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/lossledger serve --demo
+
+serve: $(STAMP)
+	$(VENV)/bin/lossledger serve
+
+migrate: $(STAMP)
+	$(VENV)/bin/lossledger db upgrade
+
+test: $(STAMP)
+	$(PY) -m pytest
+
+test-fast: $(STAMP)
+	$(PY) -m pytest tests/unit -q
+
+clean:
+	rm -rf $(VENV) .pytest_cache .hypothesis

@@ -1,0 +1,10 @@
+"""The JSON API under /api/v1: the contract other programs use."""
+
+from fastapi import APIRouter
+
+from server.api import cost_bases, offers, tenders
+
+router = APIRouter(prefix="/api/v1")
+router.include_router(cost_bases.router)
+router.include_router(tenders.router)
+router.include_router(offers.router)

@@ -1,0 +1,18 @@
+"""FastAPI dependencies shared by the API and the pages."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from typing import Annotated
+
+from fastapi import Depends, Request
+from sqlalchemy.orm import Session
+
+
+def get_session(request: Request) -> Iterator[Session]:
+    """One session per request; services commit, everything else rolls back."""
+    with request.app.state.db.session() as session:
+        yield session
+
+
+SessionDep = Annotated[Session, Depends(get_session)]

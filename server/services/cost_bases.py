@@ -1,0 +1,174 @@
+"""Use cases for cost bases: create, revise (a new revision each time), read."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from pydantic import TypeAdapter
+from sqlalchemy import select
+from sqlalchemy.orm import Session, selectinload
+
+from domain.errors import InvalidInput
+from domain.rates import CapitalisationRates, rates_direct, rates_fixed_charge_rate, rates_present_worth
+from server import schemas
+from server.errors import InvalidField, NotFound
+from server.services.common import check_version, commit, get_or_404
+from server.storage.models import CostBasis, CostBasisRevision, utcnow
+
+_INPUTS = TypeAdapter(schemas.MethodInputs)
+
+
+def rates_for(inputs: schemas.DirectInputs | schemas.PresentWorthInputs | schemas.FixedChargeRateInputs) -> CapitalisationRates:
+    """Derive A, B, C from validated inputs; percentages become fractions here."""
+    try:
+        if isinstance(inputs, schemas.DirectInputs):
+            return rates_direct(inputs.no_load_rate_per_kw, inputs.load_rate_per_kw, inputs.aux_rate_per_kw)
+        if isinstance(inputs, schemas.PresentWorthInputs):
+            return rates_present_worth(
+                energy_price_per_kwh=inputs.energy_price_per_kwh,
+                energy_escalation=inputs.energy_escalation_pct / 100,
+                capacity_cost_per_kw_year=inputs.capacity_cost_per_kw_year,
+                discount_rate=inputs.discount_rate_pct / 100,
+                years=inputs.years,
+                peak_load_pu=inputs.peak_load_pu,
+                load_growth=inputs.load_growth_pct / 100,
+                loss_factor=inputs.loss_factor,
+                responsibility_factor=inputs.responsibility_factor,
+                cooling_hours_per_year=inputs.cooling_hours_per_year,
+            )
+        return rates_fixed_charge_rate(
+            system_capacity_cost_per_kw_year=inputs.system_capacity_cost_per_kw_year,
+            energy_cost_per_kwh=inputs.energy_cost_per_kwh,
+            fixed_charge_rate=inputs.fixed_charge_rate_pct / 100,
+            responsibility_factor=inputs.responsibility_factor,
+            peak_load_pu=inputs.peak_load_pu,
+            loss_factor=inputs.loss_factor,
+            cooling_hours_per_year=inputs.cooling_hours_per_year,
+        )
+    except InvalidInput as exc:
+        raise InvalidField(_api_field(exc.field), exc.message) from exc
+
+
+_FRACTION_TO_PCT = {
+    "energy_escalation": "energy_escalation_pct",
+    "discount_rate": "discount_rate_pct",
+    "load_growth": "load_growth_pct",
+    "fixed_charge_rate": "fixed_charge_rate_pct",
+}
+
+
+def _api_field(domain_field: str) -> str:
+    return _FRACTION_TO_PCT.get(domain_field, domain_field)
+
+
+def parse_inputs(data: dict[str, Any]):
+    """Validate a method and its inputs (raises pydantic's ValidationError)."""
+    return _INPUTS.validate_python(data)
+
+
+def _new_revision(cost_basis: CostBasis, inputs, number: int) -> CostBasisRevision:
+    rates = rates_for(inputs)
+    stored = inputs.model_dump(exclude={"method"})
+    revision = CostBasisRevision(
+        revision=number,
+        method=inputs.method,
+        inputs=stored,
+        no_load_rate_per_kw=rates.no_load_rate_per_kw,
+        load_rate_per_kw=rates.load_rate_per_kw,
+        aux_rate_per_kw=rates.aux_rate_per_kw,
+    )
+    cost_basis.revisions.append(revision)
+    return revision
+
+
+def _name_taken(session: Session, name: str, except_id: int | None = None) -> bool:
+    found = session.scalar(select(CostBasis.id).where(CostBasis.name == name))
+    return found is not None and found != except_id
+
+
+def create_cost_basis(session: Session, data) -> CostBasis:
+    if _name_taken(session, data.name):
+        raise InvalidField("name", f"a cost basis called '{data.name}' already exists.")
+    inputs = parse_inputs(data.model_dump(exclude={"name", "currency"}))
+    cost_basis = CostBasis(name=data.name, currency=data.currency)
+    _new_revision(cost_basis, inputs, 1)
+    session.add(cost_basis)
+    commit(session, "cost basis", unique_field="name")
+    return cost_basis
+
+
+def list_cost_bases(session: Session) -> list[CostBasis]:
+    return list(
+        session.scalars(select(CostBasis).options(selectinload(CostBasis.revisions)).order_by(CostBasis.name))
+    )
+
+
+def get_cost_basis(session: Session, cost_basis_id: int) -> CostBasis:
+    return get_or_404(session, CostBasis, cost_basis_id, "Cost basis")
+
+
+def get_revision(session: Session, cost_basis_id: int, revision: int | None) -> CostBasisRevision:
+    """A given revision of a basis, or its latest when ``revision`` is None."""
+    cost_basis = get_cost_basis(session, cost_basis_id)
+    if revision is None:
+        return cost_basis.latest
+    for rev in cost_basis.revisions:
+        if rev.revision == revision:
+            return rev
+    raise NotFound(f"Cost basis {cost_basis_id} has no revision {revision}.")
+
+
+def revise_cost_basis(session: Session, cost_basis_id: int, patch: schemas.CostBasisPatch) -> CostBasis:
+    """Apply a change; any change to the method or its inputs makes a new revision."""
+    cost_basis = get_cost_basis(session, cost_basis_id)
+    check_version(cost_basis, patch.version, "cost basis", current=cost_basis_out(cost_basis).model_dump(mode="json"))
+    latest = cost_basis.latest
+    if patch.name is not None and patch.name != cost_basis.name:
+        if _name_taken(session, patch.name, cost_basis.id):
+            raise InvalidField("name", f"a cost basis called '{patch.name}' already exists.")
+        cost_basis.name = patch.name
+    if patch.currency is not None:
+        cost_basis.currency = patch.currency
+    method = patch.method or latest.method
+    sent = dict(patch.model_extra or {})
+    merged = {**(latest.inputs if method == latest.method else {}), **sent, "method": method}
+    inputs = parse_inputs(merged)
+    if inputs.method != latest.method or inputs.model_dump(exclude={"method"}) != latest.inputs:
+        _new_revision(cost_basis, inputs, latest.revision + 1)
+    cost_basis.updated_at = utcnow()  # a new revision alone still bumps the basis's version
+    commit(session, "cost basis", unique_field="name")
+    session.refresh(cost_basis)
+    return cost_basis
+
+
+def revision_out(rev: CostBasisRevision) -> schemas.CostBasisRevisionOut:
+    return schemas.CostBasisRevisionOut(
+        revision=rev.revision,
+        method=rev.method,
+        inputs=rev.inputs,
+        created_at=rev.created_at,
+        no_load_rate_per_kw=rev.no_load_rate_per_kw,
+        load_rate_per_kw=rev.load_rate_per_kw,
+        aux_rate_per_kw=rev.aux_rate_per_kw,
+    )
+
+
+def cost_basis_out(cost_basis: CostBasis, detail: bool = False) -> schemas.CostBasisOut:
+    latest = cost_basis.latest
+    fields = dict(
+        id=cost_basis.id,
+        name=cost_basis.name,
+        currency=cost_basis.currency,
+        version=cost_basis.version,
+        revision=latest.revision,
+        method=latest.method,
+        inputs=latest.inputs,
+        created_at=cost_basis.created_at,
+        updated_at=cost_basis.updated_at,
+        no_load_rate_per_kw=latest.no_load_rate_per_kw,
+        load_rate_per_kw=latest.load_rate_per_kw,
+        aux_rate_per_kw=latest.aux_rate_per_kw,
+    )
+    if detail:
+        return schemas.CostBasisDetailOut(**fields, revisions=[revision_out(r) for r in cost_basis.revisions])
+    return schemas.CostBasisOut(**fields)

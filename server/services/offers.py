@@ -1,0 +1,53 @@
+"""Use cases for the offers of a lot."""
+
+from __future__ import annotations
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from server import schemas
+from server.errors import InvalidField
+from server.services.common import apply_patch, check_version, commit, get_or_404
+from server.services.tenders import get_lot
+from server.settings import get_settings
+from server.storage.models import Offer
+
+_REQUIRED = {"bidder", "unit_price", "no_load_loss_w", "load_loss_w", "aux_loss_w", "impedance_pct"}
+
+
+def add_offer(session: Session, lot_id: int, data: schemas.OfferCreate) -> Offer:
+    lot = get_lot(session, lot_id)
+    count = session.scalar(select(func.count()).select_from(Offer).where(Offer.lot_id == lot.id))
+    limit = get_settings().max_offers_per_lot
+    if count >= limit:
+        raise InvalidField("lot", f"holds {count} offers already, the most one lot may hold.")
+    offer = Offer(lot=lot, **data.model_dump())
+    session.add(offer)
+    commit(session, "offer")
+    return offer
+
+
+def list_offers(session: Session, lot_id: int) -> list[Offer]:
+    lot = get_lot(session, lot_id)
+    return list(session.scalars(select(Offer).where(Offer.lot_id == lot.id).order_by(Offer.id)))
+
+
+def get_offer(session: Session, offer_id: int) -> Offer:
+    return get_or_404(session, Offer, offer_id, "Offer")
+
+
+def offer_out(offer: Offer) -> schemas.OfferOut:
+    return schemas.OfferOut.model_validate(offer)
+
+
+def patch_offer(session: Session, offer_id: int, patch: schemas.OfferPatch) -> Offer:
+    offer = get_offer(session, offer_id)
+    check_version(offer, patch.version, "offer", current=offer_out(offer).model_dump(mode="json"))
+    apply_patch(offer, patch, _REQUIRED)
+    commit(session, "offer")
+    return offer
+
+
+def delete_offer(session: Session, offer_id: int) -> None:
+    session.delete(get_offer(session, offer_id))
+    commit(session, "offer")

@@ -1,0 +1,132 @@
+"""Use cases for tenders and their lots."""
+
+from __future__ import annotations
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session, selectinload
+
+from server import schemas
+from server.errors import InvalidField
+from server.services.common import apply_patch, check_version, commit, get_or_404
+from server.services.cost_bases import get_revision
+from server.storage.models import Lot, Offer, Tender
+
+_TENDER_REQUIRED = {"reference", "title", "currency", "status"}
+_LOT_REQUIRED = {
+    "name", "rating_kva", "phases", "hv_kv", "lv_kv", "frequency_hz",
+    "insulation", "quantity", "reference_temp_c",
+}
+
+
+def _reference_taken(session: Session, reference: str, except_id: int | None = None) -> bool:
+    found = session.scalar(select(Tender.id).where(Tender.reference == reference))
+    return found is not None and found != except_id
+
+
+def create_tender(session: Session, data: schemas.TenderCreate) -> Tender:
+    if _reference_taken(session, data.reference):
+        raise InvalidField("reference", f"a tender with reference '{data.reference}' already exists.")
+    revision = get_revision(session, data.cost_basis_id, data.cost_basis_revision)
+    tender = Tender(
+        reference=data.reference,
+        title=data.title,
+        currency=data.currency,
+        status=data.status,
+        cost_basis_revision=revision,
+        lots=[Lot(**lot.model_dump()) for lot in data.lots],
+    )
+    session.add(tender)
+    commit(session, "tender", unique_field="reference")
+    return tender
+
+
+def list_tenders(session: Session) -> list[Tender]:
+    return list(
+        session.scalars(
+            select(Tender).options(selectinload(Tender.lots)).order_by(Tender.created_at.desc(), Tender.id.desc())
+        )
+    )
+
+
+def get_tender(session: Session, tender_id: int) -> Tender:
+    return get_or_404(session, Tender, tender_id, "Tender")
+
+
+def patch_tender(session: Session, tender_id: int, patch: schemas.TenderPatch) -> Tender:
+    tender = get_tender(session, tender_id)
+    check_version(tender, patch.version, "tender", current=tender_out(session, tender).model_dump(mode="json"))
+    if patch.reference is not None and _reference_taken(session, patch.reference, tender.id):
+        raise InvalidField("reference", f"a tender with reference '{patch.reference}' already exists.")
+    apply_patch(tender, patch, _TENDER_REQUIRED, skip={"cost_basis_id", "cost_basis_revision"})
+    if patch.cost_basis_id is not None or patch.cost_basis_revision is not None:
+        basis_id = patch.cost_basis_id or tender.cost_basis_revision.cost_basis_id
+        tender.cost_basis_revision = get_revision(session, basis_id, patch.cost_basis_revision)
+    commit(session, "tender", unique_field="reference")
+    return tender
+
+
+def delete_tender(session: Session, tender_id: int) -> None:
+    session.delete(get_tender(session, tender_id))
+    commit(session, "tender")
+
+
+def offer_counts(session: Session, lot_ids: list[int]) -> dict[int, int]:
+    if not lot_ids:
+        return {}
+    rows = session.execute(
+        select(Offer.lot_id, func.count()).where(Offer.lot_id.in_(lot_ids)).group_by(Offer.lot_id)
+    )
+    return {lot_id: count for lot_id, count in rows}
+
+
+def lot_out(lot: Lot, offer_count: int = 0) -> schemas.LotOut:
+    out = schemas.LotOut.model_validate(lot)
+    out.offer_count = offer_count
+    return out
+
+
+def tender_out(session: Session, tender: Tender) -> schemas.TenderOut:
+    counts = offer_counts(session, [lot.id for lot in tender.lots])
+    revision = tender.cost_basis_revision
+    return schemas.TenderOut(
+        id=tender.id,
+        version=tender.version,
+        reference=tender.reference,
+        title=tender.title,
+        currency=tender.currency,
+        status=tender.status,
+        cost_basis_id=revision.cost_basis_id,
+        cost_basis_name=revision.cost_basis.name,
+        cost_basis_revision=revision.revision,
+        created_at=tender.created_at,
+        updated_at=tender.updated_at,
+        lots=[lot_out(lot, counts.get(lot.id, 0)) for lot in tender.lots],
+    )
+
+
+def add_lot(session: Session, tender_id: int, data: schemas.LotCreate) -> Lot:
+    tender = get_tender(session, tender_id)
+    lot = Lot(tender=tender, **data.model_dump())
+    session.add(lot)
+    commit(session, "lot")
+    return lot
+
+
+def get_lot(session: Session, lot_id: int) -> Lot:
+    return get_or_404(session, Lot, lot_id, "Lot")
+
+
+def patch_lot(session: Session, lot_id: int, patch: schemas.LotPatch) -> Lot:
+    lot = get_lot(session, lot_id)
+    check_version(lot, patch.version, "lot", current=lot_out(lot).model_dump(mode="json"))
+    apply_patch(lot, patch, _LOT_REQUIRED)
+    commit(session, "lot")
+    return lot
+
+
+def delete_lot(session: Session, lot_id: int) -> None:
+    lot = get_lot(session, lot_id)
+    if len(lot.tender.lots) == 1:
+        raise InvalidField("lot", "a tender keeps at least one lot; delete the tender instead.")
+    session.delete(lot)
+    commit(session, "lot")

@@ -1,0 +1,129 @@
+"""SQLAlchemy models. The schema itself is made only by the Alembic migrations."""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+from typing import Any
+
+from sqlalchemy import JSON, DateTime, Float, ForeignKey, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+
+NAMING_CONVENTION = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+
+def utcnow() -> datetime:
+    return datetime.now(UTC)
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING_CONVENTION)
+
+
+class Versioned:
+    """Optimistic locking: every UPDATE checks and bumps ``version``."""
+
+    version: Mapped[int] = mapped_column(Integer, nullable=False, default=1)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    updated_at: Mapped[datetime] = mapped_column(
+        DateTime(timezone=True), default=utcnow, onupdate=utcnow, nullable=False
+    )
+
+
+class CostBasis(Versioned, Base):
+    __tablename__ = "cost_bases"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(120), nullable=False, unique=True)
+    currency: Mapped[str] = mapped_column(String(3), nullable=False)
+    revisions: Mapped[list[CostBasisRevision]] = relationship(
+        back_populates="cost_basis", order_by="CostBasisRevision.revision", cascade="all, delete-orphan"
+    )
+
+    @property
+    def latest(self) -> CostBasisRevision:
+        return self.revisions[-1]
+
+
+class CostBasisRevision(Base):
+    """An immutable set of inputs and the rates derived from them."""
+
+    __tablename__ = "cost_basis_revisions"
+    __table_args__ = (UniqueConstraint("cost_basis_id", "revision"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    cost_basis_id: Mapped[int] = mapped_column(ForeignKey("cost_bases.id", ondelete="CASCADE"), nullable=False)
+    revision: Mapped[int] = mapped_column(Integer, nullable=False)
+    method: Mapped[str] = mapped_column(String(32), nullable=False)
+    inputs: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    no_load_rate_per_kw: Mapped[float] = mapped_column(Float, nullable=False)
+    load_rate_per_kw: Mapped[float] = mapped_column(Float, nullable=False)
+    aux_rate_per_kw: Mapped[float] = mapped_column(Float, nullable=False)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    cost_basis: Mapped[CostBasis] = relationship(back_populates="revisions")
+
+
+class Tender(Versioned, Base):
+    __tablename__ = "tenders"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    reference: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
+    title: Mapped[str] = mapped_column(String(200), nullable=False)
+    currency: Mapped[str] = mapped_column(String(3), nullable=False)
+    status: Mapped[str] = mapped_column(String(16), nullable=False, default="draft")
+    cost_basis_revision_id: Mapped[int] = mapped_column(
+        ForeignKey("cost_basis_revisions.id", ondelete="RESTRICT"), nullable=False
+    )
+    cost_basis_revision: Mapped[CostBasisRevision] = relationship()
+    lots: Mapped[list[Lot]] = relationship(
+        back_populates="tender", order_by="Lot.id", cascade="all, delete-orphan", passive_deletes=True
+    )
+
+
+class Lot(Versioned, Base):
+    __tablename__ = "lots"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    tender_id: Mapped[int] = mapped_column(ForeignKey("tenders.id", ondelete="CASCADE"), nullable=False, index=True)
+    name: Mapped[str] = mapped_column(String(120), nullable=False)
+    rating_kva: Mapped[float] = mapped_column(Float, nullable=False)
+    phases: Mapped[int] = mapped_column(Integer, nullable=False)
+    hv_kv: Mapped[float] = mapped_column(Float, nullable=False)
+    lv_kv: Mapped[float] = mapped_column(Float, nullable=False)
+    frequency_hz: Mapped[float] = mapped_column(Float, nullable=False)
+    insulation: Mapped[str] = mapped_column(String(16), nullable=False)
+    quantity: Mapped[int] = mapped_column(Integer, nullable=False)
+    reference_temp_c: Mapped[float] = mapped_column(Float, nullable=False)
+    max_no_load_loss_w: Mapped[float | None] = mapped_column(Float)
+    max_load_loss_w: Mapped[float | None] = mapped_column(Float)
+    impedance_pct: Mapped[float | None] = mapped_column(Float)
+    tender: Mapped[Tender] = relationship(back_populates="lots")
+    offers: Mapped[list[Offer]] = relationship(
+        back_populates="lot", order_by="Offer.id", cascade="all, delete-orphan", passive_deletes=True
+    )
+
+
+class Offer(Versioned, Base):
+    __tablename__ = "offers"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="CASCADE"), nullable=False, index=True)
+    bidder: Mapped[str] = mapped_column(String(120), nullable=False)
+    unit_price: Mapped[float] = mapped_column(Float, nullable=False)
+    no_load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
+    load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
+    aux_loss_w: Mapped[float] = mapped_column(Float, nullable=False, default=0.0)
+    impedance_pct: Mapped[float] = mapped_column(Float, nullable=False)
+    no_load_current_pct: Mapped[float | None] = mapped_column(Float)
+    delivery_weeks: Mapped[int | None] = mapped_column(Integer)
+    notes: Mapped[str | None] = mapped_column(Text)
+    lot: Mapped[Lot] = relationship(back_populates="offers")

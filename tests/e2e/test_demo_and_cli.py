@@ -1,0 +1,51 @@
+"""The demo scenario and the command line."""
+
+from __future__ import annotations
+
+import pytest
+
+from server import cli
+from server.settings import get_settings
+from tests.conftest import make_client
+
+
+@pytest.fixture
+def cli_env(monkeypatch, tmp_path):
+    url = f"sqlite:///{tmp_path / 'cli.db'}"
+    monkeypatch.setenv("LOSSLEDGER_DATABASE_URL", url)
+    get_settings.cache_clear()
+    yield url
+    get_settings.cache_clear()
+
+
+def test_demo_seeds_once_and_every_lot_rewards_low_losses(cli_env, capsys):
+    assert cli.main(["demo"]) == 0
+    assert "Seeded the demo scenario" in capsys.readouterr().out
+    assert cli.main(["demo"]) == 0
+    assert "not empty" in capsys.readouterr().out
+    with make_client(cli_env) as client:
+        tenders = client.get("/api/v1/tenders").json()
+        assert len(tenders) == 1 and len(tenders[0]["lots"]) == 3
+        assert len(client.get("/api/v1/cost-bases").json()) == 3
+        leaders = set()
+        for lot in tenders[0]["lots"]:
+            rows = client.get(f"/api/v1/lots/{lot['id']}/ranking").json()["rows"]
+            assert len(rows) == 5
+            cheapest = min(rows, key=lambda r: r["unit_price"])
+            assert cheapest["rank"] != 1, "the demo must show that the cheapest price is not the lowest TOC"
+            leaders.add(rows[0]["bidder"])
+        assert len(leaders) == 3
+
+
+def test_db_upgrade_and_downgrade_commands(cli_env, capsys):
+    assert cli.main(["db", "upgrade"]) == 0
+    assert cli.main(["db", "downgrade", "base"]) == 0
+    assert cli.main(["db", "upgrade"]) == 0
+    assert "latest schema" in capsys.readouterr().out
+
+
+def test_demo_fiction_is_labelled():
+    from server import demo
+
+    assert "fictional" in demo.UTILITY
+    assert all("(demo)" in name for name in demo.BIDDERS)
