@@ -1,34 +1,37 @@
-"""Application factory: wires settings, database, routes and error handling."""
+"""Application factory: wires settings, database, security, routes and error handling."""
 
 from __future__ import annotations
 
+import logging
 from contextlib import asynccontextmanager
 from pathlib import Path
+from urllib.parse import quote
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse
+from fastapi.responses import HTMLResponse, JSONResponse, RedirectResponse
 from fastapi.staticfiles import StaticFiles
 from pydantic import ValidationError
 
 from server import api, pages
+from server.auth import ANY_ROLE, NotAuthenticated
 from server.errors import Conflict, InvalidField, ServiceError
+from server.middleware import BodySizeLimit, SecurityHeaders
 from server.settings import Settings, get_settings
 from server.storage.database import Database
+from server.version import VERSION
 
 STATIC_DIR = Path(__file__).resolve().parents[1] / "static"
-VERSION = "0.1.0"
+log = logging.getLogger("lossledger")
 
 
-def _validation_payload(errors: list[dict], prefix: tuple = ("body",)) -> list[dict]:
-    return [
-        {"loc": [*prefix, *err.get("loc", ())], "msg": err.get("msg", "invalid"), "type": err.get("type", "value_error")}
-        for err in errors
-    ]
+def _is_api(request: Request) -> bool:
+    return request.url.path.startswith("/api/") or request.url.path == "/openapi.json"
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or get_settings()
+    settings.check_production()
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
@@ -39,14 +42,60 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         title="LossLedger",
         version=VERSION,
         summary="Total-owning-cost evaluation of transformer tenders.",
+        description=(
+            "Authenticate with `POST /api/v1/token` (OAuth2 password form) and send "
+            "`Authorization: Bearer <token>`. Every editable record has a `version`: send it back "
+            "in a PATCH; a stale one gets 409 and nothing is overwritten."
+        ),
         lifespan=lifespan,
+        docs_url=None,
+        redoc_url=None,
+        openapi_url=None,
     )
     app.state.settings = settings
     app.state.db = Database(settings.database_url)
+    _error_handlers(app)
+
+    @app.get("/healthz", tags=["operations"])
+    def healthz() -> dict[str, str]:
+        """Liveness: the process answers."""
+        return {"status": "ok", "version": VERSION}
+
+    @app.get("/openapi.json", include_in_schema=False, dependencies=[ANY_ROLE])
+    def openapi_document() -> JSONResponse:
+        return JSONResponse(app.openapi())
+
+    @app.get("/docs", include_in_schema=False, dependencies=[ANY_ROLE])
+    def api_docs() -> HTMLResponse:
+        return HTMLResponse(
+            "<!doctype html><html lang='en'><head><meta charset='utf-8'><title>LossLedger API</title>"
+            "<link rel='stylesheet' href='/static/vendor/swagger-ui-5.35.0.css'></head><body>"
+            "<div id='api-docs' data-openapi-url='/openapi.json'></div>"
+            "<script src='/static/vendor/swagger-ui-bundle-5.35.0.js'></script>"
+            "<script src='/static/js/api-docs.js'></script></body></html>"
+        )
+
+    app.include_router(api.router)
+    app.include_router(pages.router)
+    app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
+    app.add_middleware(BodySizeLimit, max_bytes=settings.max_body_bytes)
+    app.add_middleware(SecurityHeaders)
+    return app
+
+
+def _error_handlers(app: FastAPI) -> None:
+    @app.exception_handler(NotAuthenticated)
+    async def not_authenticated(request: Request, exc: NotAuthenticated):
+        if _is_api(request):
+            return JSONResponse({"detail": exc.message}, status_code=401, headers={"WWW-Authenticate": "Bearer"})
+        target = "/login?next=" + quote(request.url.path + (f"?{request.url.query}" if request.url.query else ""))
+        if request.headers.get("HX-Request"):
+            return HTMLResponse("", status_code=401, headers={"HX-Redirect": target})
+        return RedirectResponse(target, status_code=303)
 
     @app.exception_handler(InvalidField)
     async def invalid_field(request: Request, exc: InvalidField):
-        if pages.wants_page(request):
+        if not _is_api(request):
             return pages.error_page(request, exc)
         detail = [{"loc": ["body", exc.field], "msg": exc.detail, "type": "value_error"}]
         return JSONResponse({"detail": detail}, status_code=422)
@@ -54,16 +103,21 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @app.exception_handler(ValidationError)
     async def service_validation(request: Request, exc: ValidationError):
         # Raised when a service validates merged data (for example a partial cost basis edit).
-        return JSONResponse({"detail": _validation_payload(exc.errors(include_url=False))}, status_code=422)
+        detail = [
+            {"loc": ["body", *e.get("loc", ())], "msg": e.get("msg", "invalid"), "type": e.get("type", "value_error")}
+            for e in exc.errors(include_url=False)
+        ]
+        return JSONResponse({"detail": detail}, status_code=422)
 
     @app.exception_handler(ServiceError)
     async def service_error(request: Request, exc: ServiceError):
-        if pages.wants_page(request):
+        if not _is_api(request):
             return pages.error_page(request, exc)
         body: dict = {"detail": exc.message}
         if isinstance(exc, Conflict) and exc.current is not None:
             body["current"] = exc.current
-        return JSONResponse(body, status_code=exc.status_code)
+        headers = {"WWW-Authenticate": "Bearer"} if exc.status_code == 401 else None
+        return JSONResponse(body, status_code=exc.status_code, headers=headers)
 
     @app.exception_handler(RequestValidationError)
     async def request_validation(request: Request, exc: RequestValidationError):
@@ -73,11 +127,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         ]
         return JSONResponse({"detail": errors}, status_code=422)
 
-    @app.get("/healthz", tags=["operations"])
-    def healthz() -> dict[str, str]:
-        return {"status": "ok", "version": VERSION}
-
-    app.include_router(api.router)
-    app.include_router(pages.router)
-    app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
-    return app
+    @app.exception_handler(Exception)
+    async def unexpected(request: Request, exc: Exception):
+        # Logged in full on the server; the client sees no stack trace and no SQL.
+        log.exception("unhandled error on %s %s", request.method, request.url.path)
+        if _is_api(request):
+            return JSONResponse({"detail": "Internal error; it has been logged."}, status_code=500)
+        return HTMLResponse("<h1>Something went wrong</h1><p>The error has been logged.</p>", status_code=500)

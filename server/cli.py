@@ -3,9 +3,15 @@
 from __future__ import annotations
 
 import argparse
+import getpass
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+from sqlalchemy.orm import Session
 
 from server.settings import get_settings
+from server.storage.models import ROLES
 
 
 def _upgrade(url: str) -> None:
@@ -14,19 +20,32 @@ def _upgrade(url: str) -> None:
     upgrade(url)
 
 
-def _seed(url: str) -> None:
-    from server.demo import UTILITY, seed_demo
+@contextmanager
+def _session(url: str) -> Iterator[Session]:
+    """A database session whose changes the audit trail credits to the command line."""
+    from server.storage.audit import Actor, set_actor
     from server.storage.database import Database
 
     db = Database(url)
     try:
         with db.session() as session:
-            if seed_demo(session):
-                print(f"Seeded the demo scenario: {UTILITY}.")
-            else:
-                print("The database is not empty; the demo scenario was not seeded.")
+            set_actor(session, Actor(f"command line ({getpass.getuser()})"))
+            yield session
     finally:
         db.dispose()
+
+
+def _seed(url: str) -> None:
+    from server.demo import UTILITY, seed_demo, seed_demo_users
+
+    with _session(url) as session:
+        if seed_demo(session):
+            print(f"Seeded the demo scenario: {UTILITY}.")
+            print("Demo users (passwords are shown here once and stored only as hashes):")
+            for name, roles, password in seed_demo_users(session):
+                print(f"  {name:<10} {password}   roles: {', '.join(roles)}")
+        else:
+            print("The database is not empty; the demo scenario was not seeded.")
 
 
 def cmd_serve(args: argparse.Namespace) -> int:
@@ -66,6 +85,43 @@ def cmd_demo(_args: argparse.Namespace) -> int:
     return 0
 
 
+def _read_password(args: argparse.Namespace) -> str:
+    if not args.password_stdin:
+        return getpass.getpass("Password: ")
+    password = sys.stdin.readline().rstrip("\r\n")
+    if not password:
+        raise SystemExit("No password on standard input.")
+    return password
+
+
+def cmd_users(args: argparse.Namespace) -> int:
+    from server.errors import ServiceError
+    from server.services import users
+
+    url = get_settings().database_url
+    if url.startswith("sqlite"):
+        _upgrade(url)
+    with _session(url) as session:
+        try:
+            if args.action == "create":
+                user = users.create_user(session, args.name, _read_password(args), args.role)
+                print(f"Created user {user.username} with roles {', '.join(user.roles)}.")
+            elif args.action == "list":
+                for user in users.list_users(session):
+                    state = "disabled" if user.disabled else "active"
+                    print(f"{user.username:<24} {state:<9} {', '.join(user.roles)}")
+            elif args.action == "disable":
+                users.disable_user(session, args.name)
+                print(f"Disabled {args.name}; their sessions and tokens are revoked.")
+            elif args.action == "reset-password":
+                users.set_password(session, args.name, _read_password(args))
+                print(f"New password set for {args.name}; their sessions and tokens are revoked.")
+        except ServiceError as exc:
+            print(f"error: {exc.message}", file=sys.stderr)
+            return 1
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="lossledger", description="Transformer tender evaluation by total owning cost.")
     sub = parser.add_subparsers(dest="command", required=True)
@@ -83,6 +139,20 @@ def build_parser() -> argparse.ArgumentParser:
     down = db_sub.add_parser("downgrade", help="revert migrations")
     down.add_argument("revision", help="target revision, e.g. -1 or base")
     db.set_defaults(func=cmd_db)
+
+    people = sub.add_parser("users", help="user accounts")
+    people_sub = people.add_subparsers(dest="action", required=True)
+    create = people_sub.add_parser("create", help="create a user")
+    create.add_argument("name")
+    create.add_argument("--role", action="append", required=True, choices=ROLES, help="may be repeated")
+    create.add_argument("--password-stdin", action="store_true", help="read the password from standard input")
+    people_sub.add_parser("list", help="list users")
+    disable = people_sub.add_parser("disable", help="disable a user and revoke their sessions")
+    disable.add_argument("name")
+    reset = people_sub.add_parser("reset-password", help="set a new password")
+    reset.add_argument("name")
+    reset.add_argument("--password-stdin", action="store_true", help="read the password from standard input")
+    people.set_defaults(func=cmd_users)
 
     demo = sub.add_parser("demo", help="seed the demo scenario into an empty database")
     demo.set_defaults(func=cmd_demo)

@@ -6,6 +6,8 @@ None of the names or figures describe a real company or a real tender.
 
 from __future__ import annotations
 
+import secrets
+
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
@@ -13,7 +15,8 @@ from server import schemas
 from server.services.cost_bases import create_cost_basis
 from server.services.offers import add_offer
 from server.services.tenders import create_tender
-from server.storage.models import CostBasis, Tender
+from server.services.users import create_user
+from server.storage.models import ROLES, CostBasis, Tender, User
 
 UTILITY = "Harrowmere Valley Electricity (fictional)"
 
@@ -103,10 +106,19 @@ OFFERS = {
 }
 
 
+def seed_demo_users(session: Session) -> list[tuple[str, list[str], str]]:
+    """One demo user per role, with fresh random passwords returned for the console only."""
+    created = []
+    for role in ROLES:
+        name = f"demo-{role}"
+        password = secrets.token_urlsafe(12)
+        create_user(session, name, password, [role])
+        created.append((name, [role], password))
+    return created
+
+
 def is_empty(session: Session) -> bool:
-    tenders = session.scalar(select(func.count()).select_from(Tender))
-    bases = session.scalar(select(func.count()).select_from(CostBasis))
-    return tenders == 0 and bases == 0
+    return all(session.scalar(select(func.count()).select_from(model)) == 0 for model in (Tender, CostBasis, User))
 
 
 def seed_demo(session: Session) -> bool:

@@ -331,3 +331,89 @@ class ErrorOut(BaseModel):
     detail: str
     field: str | None = None
     current: dict[str, Any] | None = None
+
+
+# --- people ---------------------------------------------------------------------------------
+
+Role = Literal["buyer", "planner", "approver", "viewer", "admin"]
+
+
+class TokenOut(BaseModel):
+    access_token: str
+    token_type: Literal["bearer"] = "bearer"
+    expires_in: int = Field(description="Seconds until the token expires.")
+
+
+class UserCreate(Strict):
+    username: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=64)]
+    password: Annotated[str, StringConstraints(min_length=10, max_length=200)]
+    roles: Annotated[list[Role], Field(min_length=1)]
+
+
+class UserPatch(Strict):
+    version: Version
+    roles: list[Role] | None = None
+    disabled: bool | None = None
+    password: Annotated[str, StringConstraints(min_length=10, max_length=200)] | None = None
+
+
+class UserOut(Out):
+    id: int
+    version: int
+    username: str
+    roles: list[str]
+    disabled: bool
+    created_at: datetime
+
+
+class MeOut(BaseModel):
+    username: str
+    roles: list[str]
+    kind: str
+
+
+# --- audit and awards -----------------------------------------------------------------------
+
+class AuditEventOut(Out):
+    id: int
+    at: datetime
+    actor: str
+    address: str | None
+    action: str
+    object_type: str
+    object_id: int | None
+    summary: str
+    before: dict[str, Any] | None
+    after: dict[str, Any] | None
+
+
+class AwardIn(Strict):
+    note: Notes | None = None
+
+
+class ReopenIn(Strict):
+    reason: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=2000)]
+
+
+class EvaluationRecordOut(Out):
+    id: int
+    lot_id: int
+    awarded_at: datetime
+    awarded_by: str
+    awarded_offer_id: int
+    software_version: str
+    sha256: str
+    reopened_at: datetime | None
+    reopened_by: str | None
+    reopen_reason: str | None
+    inputs: dict[str, Any]
+    ranking: list[dict[str, Any]]
+
+
+class VerificationOut(BaseModel):
+    record_id: int
+    hash_matches: bool
+    ranking_matches: bool
+    verified: bool
+    sha256: str
+    recomputed_sha256: str

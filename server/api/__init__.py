@@ -2,9 +2,11 @@
 
 from fastapi import APIRouter
 
-from server.api import cost_bases, offers, tenders
+from server.api import cost_bases, offers, people, records, tenders
 
 router = APIRouter(prefix="/api/v1")
+router.include_router(people.router)
 router.include_router(cost_bases.router)
 router.include_router(tenders.router)
 router.include_router(offers.router)
+router.include_router(records.router)

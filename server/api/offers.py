@@ -5,41 +5,43 @@ from __future__ import annotations
 from fastapi import APIRouter, Response
 
 from server import schemas
+from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
 from server.exports import ranking_csv
 from server.services import offers as service
 from server.services.ranking import lot_ranking
 
+
 router = APIRouter(tags=["offers and ranking"])
 
 
-@router.post("/lots/{lot_id}/offers", status_code=201, response_model=schemas.OfferOut)
+@router.post("/lots/{lot_id}/offers", status_code=201, response_model=schemas.OfferOut, dependencies=[BUYER])
 def add_offer(lot_id: int, data: schemas.OfferCreate, session: SessionDep):
     return service.offer_out(service.add_offer(session, lot_id, data))
 
 
-@router.get("/lots/{lot_id}/offers", response_model=list[schemas.OfferOut])
+@router.get("/lots/{lot_id}/offers", response_model=list[schemas.OfferOut], dependencies=[ANY_ROLE])
 def list_offers(lot_id: int, session: SessionDep):
     return [service.offer_out(o) for o in service.list_offers(session, lot_id)]
 
 
-@router.get("/offers/{offer_id}", response_model=schemas.OfferOut)
+@router.get("/offers/{offer_id}", response_model=schemas.OfferOut, dependencies=[ANY_ROLE])
 def get_offer(offer_id: int, session: SessionDep):
     return service.offer_out(service.get_offer(session, offer_id))
 
 
-@router.patch("/offers/{offer_id}", response_model=schemas.OfferOut)
+@router.patch("/offers/{offer_id}", response_model=schemas.OfferOut, dependencies=[BUYER])
 def patch_offer(offer_id: int, patch: schemas.OfferPatch, session: SessionDep):
     return service.offer_out(service.patch_offer(session, offer_id, patch))
 
 
-@router.delete("/offers/{offer_id}", status_code=204)
+@router.delete("/offers/{offer_id}", status_code=204, dependencies=[BUYER])
 def delete_offer(offer_id: int, session: SessionDep):
     service.delete_offer(session, offer_id)
     return Response(status_code=204)
 
 
-@router.get("/lots/{lot_id}/ranking", response_model=schemas.RankingOut)
+@router.get("/lots/{lot_id}/ranking", response_model=schemas.RankingOut, dependencies=[ANY_ROLE])
 def get_ranking(lot_id: int, session: SessionDep):
     """Offers ranked by total owning cost, lowest first, with the rates used."""
     return lot_ranking(session, lot_id)
@@ -47,6 +49,7 @@ def get_ranking(lot_id: int, session: SessionDep):
 
 @router.get(
     "/lots/{lot_id}/ranking.csv",
+    dependencies=[ANY_ROLE],
     response_class=Response,
     responses={200: {"content": {"text/csv": {}}, "description": "The ranking as CSV."}},
 )

@@ -8,6 +8,7 @@ from sqlalchemy.orm import Session
 from server import schemas
 from server.errors import InvalidField
 from server.services.common import apply_patch, check_version, commit, get_or_404
+from server.services.locks import ensure_open
 from server.services.tenders import get_lot
 from server.settings import get_settings
 from server.storage.models import Offer
@@ -17,6 +18,7 @@ _REQUIRED = {"bidder", "unit_price", "no_load_loss_w", "load_loss_w", "aux_loss_
 
 def add_offer(session: Session, lot_id: int, data: schemas.OfferCreate) -> Offer:
     lot = get_lot(session, lot_id)
+    ensure_open(session, lot)
     count = session.scalar(select(func.count()).select_from(Offer).where(Offer.lot_id == lot.id))
     limit = get_settings().max_offers_per_lot
     if count >= limit:
@@ -42,6 +44,7 @@ def offer_out(offer: Offer) -> schemas.OfferOut:
 
 def patch_offer(session: Session, offer_id: int, patch: schemas.OfferPatch) -> Offer:
     offer = get_offer(session, offer_id)
+    ensure_open(session, offer.lot)
     check_version(offer, patch.version, "offer", current=offer_out(offer).model_dump(mode="json"))
     apply_patch(offer, patch, _REQUIRED)
     commit(session, "offer")
@@ -49,5 +52,7 @@ def patch_offer(session: Session, offer_id: int, patch: schemas.OfferPatch) -> O
 
 
 def delete_offer(session: Session, offer_id: int) -> None:
-    session.delete(get_offer(session, offer_id))
+    offer = get_offer(session, offer_id)
+    ensure_open(session, offer.lot)
+    session.delete(offer)
     commit(session, "offer")

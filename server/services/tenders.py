@@ -9,6 +9,7 @@ from server import schemas
 from server.errors import InvalidField
 from server.services.common import apply_patch, check_version, commit, get_or_404
 from server.services.cost_bases import get_revision
+from server.services.locks import ensure_no_records, ensure_open, ensure_tender_open
 from server.storage.models import Lot, Offer, Tender
 
 _TENDER_REQUIRED = {"reference", "title", "currency", "status"}
@@ -55,6 +56,10 @@ def get_tender(session: Session, tender_id: int) -> Tender:
 def patch_tender(session: Session, tender_id: int, patch: schemas.TenderPatch) -> Tender:
     tender = get_tender(session, tender_id)
     check_version(tender, patch.version, "tender", current=tender_out(session, tender).model_dump(mode="json"))
+    if patch.status == "awarded" and tender.status != "awarded":
+        raise InvalidField("status", "a tender becomes awarded when an approver awards each of its lots.")
+    if {"currency", "cost_basis_id", "cost_basis_revision"} & patch.model_fields_set:
+        ensure_tender_open(session, tender)
     if patch.reference is not None and _reference_taken(session, patch.reference, tender.id):
         raise InvalidField("reference", f"a tender with reference '{patch.reference}' already exists.")
     apply_patch(tender, patch, _TENDER_REQUIRED, skip={"cost_basis_id", "cost_basis_revision"})
@@ -66,7 +71,9 @@ def patch_tender(session: Session, tender_id: int, patch: schemas.TenderPatch) -
 
 
 def delete_tender(session: Session, tender_id: int) -> None:
-    session.delete(get_tender(session, tender_id))
+    tender = get_tender(session, tender_id)
+    ensure_no_records(session, tender)
+    session.delete(tender)
     commit(session, "tender")
 
 
@@ -118,6 +125,7 @@ def get_lot(session: Session, lot_id: int) -> Lot:
 
 def patch_lot(session: Session, lot_id: int, patch: schemas.LotPatch) -> Lot:
     lot = get_lot(session, lot_id)
+    ensure_open(session, lot)
     check_version(lot, patch.version, "lot", current=lot_out(lot).model_dump(mode="json"))
     apply_patch(lot, patch, _LOT_REQUIRED)
     commit(session, "lot")
@@ -126,6 +134,7 @@ def patch_lot(session: Session, lot_id: int, patch: schemas.LotPatch) -> Lot:
 
 def delete_lot(session: Session, lot_id: int) -> None:
     lot = get_lot(session, lot_id)
+    ensure_open(session, lot)
     if len(lot.tender.lots) == 1:
         raise InvalidField("lot", "a tender keeps at least one lot; delete the tender instead.")
     session.delete(lot)

@@ -8,6 +8,8 @@ from contextlib import contextmanager
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
+from server.storage import audit  # noqa: F401  (registers the audit hook on every session)
+
 
 def make_engine(url: str) -> Engine:
     """Create an engine; SQLite gets foreign keys, WAL and a busy timeout."""

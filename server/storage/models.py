@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, Float, ForeignKey, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy import JSON, Boolean, DateTime, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
 NAMING_CONVENTION = {
@@ -83,7 +83,7 @@ class Tender(Versioned, Base):
     )
     cost_basis_revision: Mapped[CostBasisRevision] = relationship()
     lots: Mapped[list[Lot]] = relationship(
-        back_populates="tender", order_by="Lot.id", cascade="all, delete-orphan", passive_deletes=True
+        back_populates="tender", order_by="Lot.id", cascade="all, delete-orphan"
     )
 
 
@@ -107,7 +107,7 @@ class Lot(Versioned, Base):
     impedance_pct: Mapped[float | None] = mapped_column(Float)
     tender: Mapped[Tender] = relationship(back_populates="lots")
     offers: Mapped[list[Offer]] = relationship(
-        back_populates="lot", order_by="Offer.id", cascade="all, delete-orphan", passive_deletes=True
+        back_populates="lot", order_by="Offer.id", cascade="all, delete-orphan"
     )
 
 
@@ -127,3 +127,88 @@ class Offer(Versioned, Base):
     delivery_weeks: Mapped[int | None] = mapped_column(Integer)
     notes: Mapped[str | None] = mapped_column(Text)
     lot: Mapped[Lot] = relationship(back_populates="offers")
+
+
+# --- people, sessions, audit, awards ------------------------------------------------------------
+
+ROLES = ("buyer", "planner", "approver", "viewer", "admin")
+
+
+class User(Versioned, Base):
+    __tablename__ = "users"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    username: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
+    password_hash: Mapped[str] = mapped_column(String(255), nullable=False)
+    roles: Mapped[list[str]] = mapped_column(JSON, nullable=False, default=list)
+    disabled: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+
+
+class AuthSession(Base):
+    """A browser session or an API token; only a hash of the secret is stored."""
+
+    __tablename__ = "auth_sessions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    token_hash: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), nullable=False, index=True)
+    kind: Mapped[str] = mapped_column(String(16), nullable=False)  # "browser" or "api"
+    csrf_token: Mapped[str | None] = mapped_column(String(64))
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    last_seen_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    expires_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+    revoked_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    user: Mapped[User] = relationship()
+
+
+class LoginAttempt(Base):
+    __tablename__ = "login_attempts"
+    __table_args__ = (
+        Index("ix_login_attempts_username_at", "username", "at"),
+        Index("ix_login_attempts_address_at", "address", "at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    username: Mapped[str] = mapped_column(String(64), nullable=False)
+    address: Mapped[str] = mapped_column(String(64), nullable=False)
+    succeeded: Mapped[bool] = mapped_column(Boolean, nullable=False)
+
+
+class AuditEvent(Base):
+    """One change or security event. Append-only: database triggers refuse UPDATE and DELETE."""
+
+    __tablename__ = "audit_events"
+    __table_args__ = (Index("ix_audit_events_object", "object_type", "object_id"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False, index=True)
+    actor: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
+    action: Mapped[str] = mapped_column(String(32), nullable=False)
+    object_type: Mapped[str] = mapped_column(String(32), nullable=False)
+    object_id: Mapped[int | None] = mapped_column(Integer)
+    summary: Mapped[str] = mapped_column(String(300), nullable=False, default="")
+    before: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    after: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    address: Mapped[str | None] = mapped_column(String(64))
+
+
+class EvaluationRecord(Base):
+    """What was frozen when a lot was awarded: inputs, ranking, software version and hash."""
+
+    __tablename__ = "evaluation_records"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="RESTRICT"), nullable=False, index=True)
+    awarded_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    awarded_by: Mapped[str] = mapped_column(String(64), nullable=False)
+    awarded_offer_id: Mapped[int] = mapped_column(Integer, nullable=False)
+    software_version: Mapped[str] = mapped_column(String(32), nullable=False)
+    inputs: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    ranking: Mapped[list[dict[str, Any]]] = mapped_column(JSON, nullable=False)
+    sha256: Mapped[str] = mapped_column(String(64), nullable=False)
+    reopened_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    reopened_by: Mapped[str | None] = mapped_column(String(64))
+    reopen_reason: Mapped[str | None] = mapped_column(Text)
+    lot: Mapped[Lot] = relationship()

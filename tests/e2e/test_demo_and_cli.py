@@ -18,12 +18,24 @@ def cli_env(monkeypatch, tmp_path):
     get_settings.cache_clear()
 
 
+def _demo_password(output: str, name: str) -> str:
+    for line in output.splitlines():
+        parts = line.split()
+        if parts and parts[0] == name:
+            return parts[1]
+    raise AssertionError(f"{name} not printed")
+
+
 def test_demo_seeds_once_and_every_lot_rewards_low_losses(cli_env, capsys):
     assert cli.main(["demo"]) == 0
-    assert "Seeded the demo scenario" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "Seeded the demo scenario" in out
     assert cli.main(["demo"]) == 0
     assert "not empty" in capsys.readouterr().out
     with make_client(cli_env) as client:
+        password = _demo_password(out, "demo-viewer")
+        token = client.post("/api/v1/token", data={"username": "demo-viewer", "password": password}).json()
+        client.headers["Authorization"] = f"Bearer {token['access_token']}"
         tenders = client.get("/api/v1/tenders").json()
         assert len(tenders) == 1 and len(tenders[0]["lots"]) == 3
         assert len(client.get("/api/v1/cost-bases").json()) == 3
@@ -49,3 +61,22 @@ def test_demo_fiction_is_labelled():
 
     assert "fictional" in demo.UTILITY
     assert all("(demo)" in name for name in demo.BIDDERS)
+
+
+def test_users_commands(cli_env, capsys, monkeypatch):
+    import io
+
+    monkeypatch.setattr("sys.stdin", io.StringIO("a long enough password\n"))
+    assert cli.main(["users", "create", "erin", "--role", "buyer", "--role", "viewer", "--password-stdin"]) == 0
+    monkeypatch.setattr("sys.stdin", io.StringIO("short\n"))
+    assert cli.main(["users", "create", "frank", "--role", "buyer", "--password-stdin"]) == 1
+    assert "at least 10 characters" in capsys.readouterr().err
+    assert cli.main(["users", "list"]) == 0
+    listing = capsys.readouterr().out
+    assert "erin" in listing and "buyer, viewer" in listing and "frank" not in listing
+    monkeypatch.setattr("sys.stdin", io.StringIO("another long password\n"))
+    assert cli.main(["users", "reset-password", "erin", "--password-stdin"]) == 0
+    assert cli.main(["users", "disable", "erin"]) == 0
+    with make_client(cli_env) as client:
+        r = client.post("/api/v1/token", data={"username": "erin", "password": "another long password"})
+        assert r.status_code == 401  # disabled

@@ -1,0 +1,95 @@
+"""Pages: a lot with its offers (edited in place) and their ranking by total owning cost."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request
+from fastapi.responses import RedirectResponse
+from pydantic import ValidationError
+
+from server import schemas
+from server.auth import ANY_ROLE, BUYER
+from server.deps import SessionDep
+from server.errors import Conflict, InvalidField
+from server.pages import views
+from server.pages.forms import FormDep, create_data, field_errors, patch_data
+from server.pages.templating import RANKING_CHANGED, is_htmx, page_or_partial, render, see_other
+from server.services import offers as service
+
+router = APIRouter()
+
+
+@router.get("/lots/{lot_id:int}", dependencies=[ANY_ROLE])
+def lot_detail(request: Request, lot_id: int, session: SessionDep):
+    return render(request, "lots/detail.html", views.lot_detail(session, lot_id))
+
+
+@router.get("/lots/{lot_id:int}/ranking", dependencies=[ANY_ROLE])
+def lot_ranking(request: Request, lot_id: int, session: SessionDep):
+    """The ranking section alone, fetched again by htmx whenever an offer changes."""
+    if not is_htmx(request):
+        return RedirectResponse(f"/lots/{lot_id}#ranking", status_code=303)
+    return render(request, "lots/_ranking.html", views.ranking_view(session, lot_id))
+
+
+@router.post("/lots/{lot_id:int}/offers", dependencies=[BUYER])
+def add_offer(request: Request, lot_id: int, session: SessionDep, form: FormDep):
+    try:
+        service.add_offer(session, lot_id, schemas.OfferCreate.model_validate(create_data(form, schemas.OfferCreate)))
+    except ValidationError as exc:
+        errors = field_errors(exc)
+    except InvalidField as exc:
+        views.discard(session)
+        errors = {exc.field: exc.detail}
+    else:
+        if not is_htmx(request):
+            return see_other(request, f"/lots/{lot_id}")
+        return render(request, "lots/_offers.html", views.lot_detail(session, lot_id), headers=RANKING_CHANGED)
+    context = views.lot_detail(session, lot_id) | {"new_form": form, "new_errors": errors}
+    return page_or_partial(request, "lots/detail.html", "lots/_offers.html", context, status_code=422)
+
+
+@router.get("/offers/{offer_id:int}", dependencies=[ANY_ROLE])
+def offer_row(request: Request, offer_id: int, session: SessionDep):
+    """One offer as a table row (htmx swaps it back in when an edit is cancelled)."""
+    context = views.offer_row(session, offer_id)
+    if not is_htmx(request):
+        return RedirectResponse(f"/lots/{context['offer'].lot_id}", status_code=303)
+    return render(request, "lots/_offer_row.html", context)
+
+
+@router.get("/offers/{offer_id:int}/edit", dependencies=[BUYER])
+def edit_offer_form(request: Request, offer_id: int, session: SessionDep):
+    context = views.offer_edit(session, offer_id)
+    return page_or_partial(request, "lots/detail.html", "lots/_offer_edit_row.html", context)
+
+
+@router.post("/offers/{offer_id:int}", dependencies=[BUYER])
+def save_offer(request: Request, offer_id: int, session: SessionDep, form: FormDep):
+    """Save an edit made against the version in the form; a stale version changes nothing."""
+    conflict = None
+    try:
+        data = patch_data(form, schemas.OfferCreate, views.OFFER_FIELDS) | {"version": form.get("version", "")}
+        offer = service.patch_offer(session, offer_id, schemas.OfferPatch.model_validate(data))
+    except ValidationError as exc:
+        errors, status = field_errors(exc), 422
+    except InvalidField as exc:
+        views.discard(session)
+        errors, status = {exc.field: exc.detail}, 422
+    except Conflict as exc:
+        views.discard(session)
+        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
+    else:
+        if not is_htmx(request):
+            return see_other(request, f"/lots/{offer.lot_id}")
+        return render(request, "lots/_offer_row.html", views.offer_row(session, offer_id), headers=RANKING_CHANGED)
+    context = views.offer_edit(session, offer_id, form, errors, conflict)
+    return page_or_partial(request, "lots/detail.html", "lots/_offer_edit_row.html", context, status)
+
+
+@router.post("/offers/{offer_id:int}/delete", dependencies=[BUYER])
+def delete_offer(request: Request, offer_id: int, session: SessionDep):
+    lot_id = views.offer_row(session, offer_id)["offer"].lot_id
+    service.delete_offer(session, offer_id)
+    if not is_htmx(request):
+        return see_other(request, f"/lots/{lot_id}")
+    return render(request, "lots/_offers.html", views.lot_detail(session, lot_id), headers=RANKING_CHANGED)

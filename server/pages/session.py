@@ -1,0 +1,62 @@
+"""Pages: log in and log out (a signed session cookie; forms carry the session's CSRF token)."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Query, Request
+from fastapi.responses import RedirectResponse
+
+from server.auth import ANY_ROLE, client_address
+from server.deps import SessionDep
+from server.pages.forms import FormDep
+from server.pages.templating import render
+from server.security import SESSION_COOKIE, sign_cookie
+from server.services import users
+from server.services.users import LoginRefused
+
+router = APIRouter()
+
+
+def _local(target: str | None) -> str:
+    """Only a path on this site is a place to return to after logging in."""
+    if not target or not target.startswith("/") or target.startswith("//") or "\\" in target:
+        return "/tenders"
+    return target
+
+
+@router.get("/login")
+def login_form(request: Request, target: Annotated[str | None, Query(alias="next")] = None):
+    return render(request, "login.html", {"form": {"next": _local(target)}, "error": None})
+
+
+@router.post("/login")
+def log_in(request: Request, session: SessionDep, form: FormDep):
+    settings = request.app.state.settings
+    target = _local(form.get("next"))
+    try:
+        token, _ = users.log_in(
+            session, settings, form.get("username", ""), form.get("password", ""), client_address(request), "browser"
+        )
+    except LoginRefused as exc:
+        context = {"form": {"username": form.get("username", ""), "next": target}, "error": exc.message}
+        return render(request, "login.html", context, status_code=401)
+    response = RedirectResponse(target, status_code=303)
+    response.set_cookie(
+        SESSION_COOKIE,
+        sign_cookie(settings.secret_key, token),
+        max_age=settings.session_max_hours * 3600,
+        httponly=True,
+        samesite="lax",
+        secure=request.url.scheme == "https" or settings.env == "production",
+        path="/",
+    )
+    return response
+
+
+@router.post("/logout", dependencies=[ANY_ROLE])
+def log_out(request: Request, session: SessionDep):
+    users.revoke(session, request.state.principal.session_id, request.state.actor)
+    response = RedirectResponse("/login", status_code=303)
+    response.delete_cookie(SESSION_COOKIE, path="/")
+    return response

@@ -1,0 +1,153 @@
+"""The one Jinja environment of the pages, its number filters, and response helpers."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Any
+
+from fastapi import Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from fastapi.templating import Jinja2Templates
+
+TEMPLATE_DIR = Path(__file__).resolve().parents[1] / "templates"
+DASH = "\u2014"
+
+
+def _who(request: Request) -> dict[str, Any]:
+    """Who is looking, their form token, and what they may change (every template gets these)."""
+    principal = getattr(request.state, "principal", None)
+    return {
+        "principal": principal,
+        "csrf_token": (principal.csrf_token or "") if principal else "",
+        "may_buy": bool(principal and principal.has_any({"buyer"})),
+        "may_plan": bool(principal and principal.has_any({"planner"})),
+    }
+
+
+templates = Jinja2Templates(directory=TEMPLATE_DIR, context_processors=[_who])
+
+
+def _finite(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def fmt_number(value: Any, decimals: int = 0) -> str:
+    """Thousands separators and a fixed number of decimals; a dash for no value."""
+    if not _finite(value):
+        return DASH
+    text = f"{value:,.{decimals}f}"
+    return "0" if decimals == 0 and text == "-0" else text
+
+
+def fmt_money(value: Any) -> str:
+    """Prices and owning costs: whole currency units."""
+    return fmt_number(value, 0)
+
+
+def fmt_rate(value: Any) -> str:
+    """Capitalisation rates per kW: one decimal."""
+    return fmt_number(value, 1)
+
+
+def fmt_pct(value: Any) -> str:
+    """Efficiencies and other percentages: two decimals."""
+    return fmt_number(value, 2)
+
+
+def fmt_plain(value: Any) -> str:
+    """A measured quantity as entered (20, 0.4, 11.5), with thousands separators."""
+    if not _finite(value):
+        return DASH
+    if float(value).is_integer():
+        return f"{value:,.0f}"
+    return f"{value:,.6f}".rstrip("0").rstrip(".")
+
+
+def input_value(value: Any) -> str:
+    """A value for an <input>: text as typed, numbers without separators or float noise."""
+    if value is None:
+        return ""
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool):
+        return str(value).lower()
+    if isinstance(value, float):
+        return f"{value:.0f}" if value.is_integer() and abs(value) < 1e15 else repr(value)
+    return str(value)
+
+
+def differs(theirs: Any, mine: Any) -> bool:
+    """Whether a stored value and a typed one differ (12500 and "12500.0" do not)."""
+    a, b = input_value(theirs), input_value(mine)
+    try:
+        return float(a) != float(b)
+    except ValueError:
+        return a != b
+
+
+def sentence(text: Any) -> str:
+    """A message as a sentence: capital first letter, full stop at the end."""
+    text = str(text).strip()
+    if not text:
+        return text
+    text = text[0].upper() + text[1:]
+    return text if text.endswith((".", "!", "?")) else text + "."
+
+
+METHOD_NAMES = {
+    "direct": "Direct rates",
+    "present_worth": "Present worth",
+    "fixed_charge_rate": "Fixed charge rate",
+}
+STATUS_NAMES = {"draft": "Draft", "evaluation": "Under evaluation", "awarded": "Awarded"}
+
+templates.env.filters.update(
+    number=fmt_number,
+    money=fmt_money,
+    rate=fmt_rate,
+    pct=fmt_pct,
+    plain=fmt_plain,
+    input_value=input_value,
+    sentence=sentence,
+    method_name=lambda m: METHOD_NAMES.get(m, m),
+    status_name=lambda s: STATUS_NAMES.get(s, s),
+)
+templates.env.globals.update(METHOD_NAMES=METHOD_NAMES, STATUS_NAMES=STATUS_NAMES, differs=differs)
+
+
+def is_htmx(request: Request) -> bool:
+    return request.headers.get("HX-Request") == "true"
+
+
+def render(
+    request: Request,
+    template: str,
+    context: dict[str, Any],
+    status_code: int = 200,
+    headers: dict[str, str] | None = None,
+) -> HTMLResponse:
+    return templates.TemplateResponse(request, template, context, status_code=status_code, headers=headers)
+
+
+def page_or_partial(
+    request: Request,
+    page: str,
+    partial: str,
+    context: dict[str, Any],
+    status_code: int = 200,
+    headers: dict[str, str] | None = None,
+) -> HTMLResponse:
+    """The whole page for a browser, only the swapped fragment for htmx."""
+    return render(request, partial if is_htmx(request) else page, context, status_code, headers)
+
+
+def see_other(request: Request, url: str) -> Response:
+    """After a successful post: 303 for a plain form; htmx gets told where to go instead,
+    because it would follow a 303 itself and swap the whole page into its target."""
+    if is_htmx(request):
+        return Response(status_code=200, headers={"HX-Redirect": url})
+    return RedirectResponse(url, status_code=303)
+
+
+RANKING_CHANGED = {"HX-Trigger": "ranking-changed"}

@@ -1,0 +1,111 @@
+"""Pages: the list of tenders, a tender with its lots."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter, Request
+from fastapi.responses import RedirectResponse
+from pydantic import ValidationError
+
+from server import schemas
+from server.auth import ANY_ROLE, BUYER
+from server.deps import SessionDep
+from server.errors import Conflict, InvalidField
+from server.pages import views
+from server.pages.forms import FormDep, FormValues, basis_choice, create_data, field_errors
+from server.pages.templating import is_htmx, page_or_partial, render, see_other
+from server.services import tenders as service
+
+router = APIRouter()
+
+
+def _new_tender(form: FormValues) -> dict[str, Any]:
+    """The tender's header boxes and its first lot's boxes (posted without a prefix)."""
+    header = {name: form.get(name, "") for name in ("reference", "title", "currency")}
+    return header | basis_choice(form.get("cost_basis", "")) | {"lots": [create_data(form, schemas.LotCreate)]}
+
+
+def _tender_patch(form: FormValues) -> dict[str, Any]:
+    """Title and status always; the cost basis only when it was changed, since an awarded
+    lot refuses a new basis but not a new title."""
+    fields = {name: form.get(name, "") for name in ("version", "title", "status")}
+    if form.get("cost_basis") == form.get("cost_basis_was"):
+        return fields
+    return fields | basis_choice(form.get("cost_basis", ""))
+
+
+@router.get("/", dependencies=[ANY_ROLE])
+def home() -> RedirectResponse:
+    return RedirectResponse("/tenders", status_code=303)
+
+
+@router.get("/tenders", dependencies=[ANY_ROLE])
+def tender_list(request: Request, session: SessionDep):
+    return render(request, "tenders/list.html", views.tender_list(session) | {"form": views.LOT_DEFAULTS})
+
+
+@router.post("/tenders", dependencies=[BUYER])
+def create_tender(request: Request, session: SessionDep, form: FormDep):
+    try:
+        tender = service.create_tender(session, schemas.TenderCreate.model_validate(_new_tender(form)))
+    except ValidationError as exc:
+        errors = field_errors(exc)
+    except InvalidField as exc:
+        views.discard(session)
+        errors = {exc.field: exc.detail}
+    else:
+        return see_other(request, f"/tenders/{tender.id}")
+    context = views.tender_list(session) | {"form": form, "errors": errors}
+    return page_or_partial(request, "tenders/list.html", "tenders/_new_form.html", context, status_code=422)
+
+
+@router.get("/tenders/{tender_id:int}", dependencies=[ANY_ROLE])
+def tender_detail(request: Request, tender_id: int, session: SessionDep, saved: bool = False):
+    context = views.tender_detail(session, tender_id)
+    context |= {"form": views.tender_form(context["tender"]), "saved": saved, "lot_form": views.LOT_DEFAULTS}
+    return render(request, "tenders/detail.html", context)
+
+
+@router.post("/tenders/{tender_id:int}", dependencies=[BUYER])
+def edit_tender(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+    """Title, status and cost basis (with its revision), saved against the version in the form."""
+    conflict = None
+    try:
+        service.patch_tender(session, tender_id, schemas.TenderPatch.model_validate(_tender_patch(form)))
+    except ValidationError as exc:
+        errors, status = field_errors(exc), 422
+    except InvalidField as exc:
+        views.discard(session)
+        errors, status = {exc.field: exc.detail}, 422
+    except Conflict as exc:
+        views.discard(session)
+        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
+    else:
+        if not is_htmx(request):
+            return see_other(request, f"/tenders/{tender_id}?saved=1")
+        context = views.tender_detail(session, tender_id)
+        context |= {"form": views.tender_form(context["tender"]), "saved": True}
+        return render(request, "tenders/_header.html", context)
+    context = views.tender_detail(session, tender_id)
+    if conflict is not None:
+        # Keep what was typed, but against the stored version: saving again is a deliberate overwrite.
+        form = form | {"version": str(context["tender"].version)}
+    context |= {"form": form, "errors": errors, "conflict": conflict, "lot_form": views.LOT_DEFAULTS}
+    return page_or_partial(request, "tenders/detail.html", "tenders/_header.html", context, status)
+
+
+@router.post("/tenders/{tender_id:int}/lots", dependencies=[BUYER])
+def add_lot(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+    try:
+        service.add_lot(session, tender_id, schemas.LotCreate.model_validate(create_data(form, schemas.LotCreate)))
+    except ValidationError as exc:
+        errors = field_errors(exc)
+    else:
+        if not is_htmx(request):
+            return see_other(request, f"/tenders/{tender_id}")
+        context = views.tender_detail(session, tender_id) | {"lot_form": views.LOT_DEFAULTS}
+        return render(request, "tenders/_lots.html", context)
+    context = views.tender_detail(session, tender_id)
+    context |= {"form": views.tender_form(context["tender"]), "lot_form": form, "lot_errors": errors}
+    return page_or_partial(request, "tenders/detail.html", "tenders/_lots.html", context, status_code=422)
