@@ -8,11 +8,13 @@ method. All rates of interest, escalation and growth are fractions per year.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, fields
 
 import numpy as np
 
-from domain._checks import finite_scalar, whole_number
+from domain._checks import finite_scalar, float_array, whole_number
+from domain.errors import InvalidInput
 
 __all__ = [
     "CapitalisationRates",
@@ -20,6 +22,7 @@ __all__ = [
     "rates_present_worth",
     "present_worth_table",
     "rates_fixed_charge_rate",
+    "carbon_cost_per_kwh",
 ]
 
 # Plausibility bounds: beyond these an input is a typing error, not a tender.
@@ -94,6 +97,8 @@ def present_worth_table(
     responsibility_factor: float,
     cooling_hours_per_year: float,
     hours_per_year: float = 8760.0,
+    energy_price_path_per_kwh: Sequence[float] | None = None,
+    carbon_cost_per_kwh: float = 0.0,
 ) -> dict[str, np.ndarray]:
     """Year-by-year present worth of one kW of each loss; its columns sum to A, B, C.
 
@@ -122,19 +127,29 @@ def present_worth_table(
         Hours a year the auxiliary (cooling) equipment runs [h], 0..hours_per_year.
     hours_per_year : float, optional
         Hours energised per year [h], 0 < h <= 8784. Default 8760.
+    energy_price_path_per_kwh : sequence of float, optional
+        An explicit energy price for each year 1..n [currency/kWh], >= 0; when
+        given it replaces ``energy_price_per_kwh`` and ``energy_escalation``.
+    carbon_cost_per_kwh : float, optional
+        Cost of the emissions of one kWh [currency/kWh] (carbon price per tonne
+        times the grid emission factor), added to every year's energy price and
+        shown as its own component. Default 0.
 
     Returns
     -------
     dict[str, numpy.ndarray]
         One row per year t = 1..n under the keys "year", "discount_factor"
         [1/(1+i)**t], "energy_price_per_kwh" [currency/kWh],
-        "peak_load_pu" [pu], and the present-worth terms "no_load_term",
-        "load_term", "aux_term" [currency/kW].
+        "carbon_cost_per_kwh" [currency/kWh], "peak_load_pu" [pu], the
+        present-worth terms "no_load_term", "load_term", "aux_term"
+        [currency/kW], and each term split into its "_capacity", "_energy" and
+        "_carbon" components (for example "load_energy"), which add up to it.
 
     Notes
     -----
     Conventions: cash flows at the end of year t, discounted by (1 + i)**t;
-    price_t = price * (1 + e)**(t - 1); peak_t = peak_pu * (1 + g)**(t - 1).
+    price_t = price * (1 + e)**(t - 1) (or the explicit path);
+    peak_t = peak_pu * (1 + g)**(t - 1). The carbon cost is added to price_t.
 
     no_load_term_t = (SC * 1 + price_t * hours) / (1 + i)**t
     (the no-load loss is present at the system peak and every hour energised);
@@ -161,18 +176,43 @@ def present_worth_table(
     hours = finite_scalar("hours_per_year", hours_per_year, low=0.0, low_open=True, high=MAX_HOURS_PER_YEAR)
     cooling_hours = finite_scalar("cooling_hours_per_year", cooling_hours_per_year, low=0.0, high=hours)
 
+    carbon = finite_scalar("carbon_cost_per_kwh", carbon_cost_per_kwh, low=0.0)
+
     year = np.arange(1, n + 1)
     discount_factor = np.power(1.0 + i, -year.astype(float))
-    price_t = price * np.power(1.0 + e, year - 1.0)
+    if energy_price_path_per_kwh is None:
+        price_t = price * np.power(1.0 + e, year - 1.0)
+    else:
+        price_t = float_array("energy_price_path_per_kwh", energy_price_path_per_kwh)
+        if price_t.shape != (n,):
+            raise InvalidInput("energy_price_path_per_kwh", f"needs one price for each of the {n} years")
+        if not np.all(np.isfinite(price_t)) or np.any(price_t < 0):
+            raise InvalidInput("energy_price_path_per_kwh", "prices must be finite and >= 0")
     peak_t = peak * np.power(1.0 + g, year - 1.0)
+    load_weight = peak_t**2 * discount_factor
+    columns = {
+        "no_load_capacity": sc * discount_factor,
+        "no_load_energy": price_t * hours * discount_factor,
+        "no_load_carbon": carbon * hours * discount_factor,
+        "load_capacity": sc * rf * load_weight,
+        "load_energy": price_t * hours * lsf * load_weight,
+        "load_carbon": carbon * hours * lsf * load_weight,
+        "aux_capacity": sc * rf * discount_factor,
+        "aux_energy": price_t * cooling_hours * discount_factor,
+        "aux_carbon": carbon * cooling_hours * discount_factor,
+    }
+    terms = {
+        f"{loss}_term": columns[f"{loss}_capacity"] + columns[f"{loss}_energy"] + columns[f"{loss}_carbon"]
+        for loss in ("no_load", "load", "aux")
+    }
     return {
         "year": year,
         "discount_factor": discount_factor,
         "energy_price_per_kwh": price_t,
+        "carbon_cost_per_kwh": np.full(n, carbon),
         "peak_load_pu": peak_t,
-        "no_load_term": (sc + price_t * hours) * discount_factor,
-        "load_term": (sc * rf + price_t * hours * lsf) * peak_t**2 * discount_factor,
-        "aux_term": (sc * rf + price_t * cooling_hours) * discount_factor,
+        **terms,
+        **columns,
     }
 
 
@@ -189,6 +229,8 @@ def rates_present_worth(
     responsibility_factor: float,
     cooling_hours_per_year: float,
     hours_per_year: float = 8760.0,
+    energy_price_path_per_kwh: Sequence[float] | None = None,
+    carbon_cost_per_kwh: float = 0.0,
 ) -> CapitalisationRates:
     """Capitalisation rates by the present-worth method: the sums of the yearly table.
 
@@ -227,12 +269,42 @@ def rates_present_worth(
         responsibility_factor=responsibility_factor,
         cooling_hours_per_year=cooling_hours_per_year,
         hours_per_year=hours_per_year,
+        energy_price_path_per_kwh=energy_price_path_per_kwh,
+        carbon_cost_per_kwh=carbon_cost_per_kwh,
     )
     return CapitalisationRates(
         no_load_rate_per_kw=float(table["no_load_term"].sum()),
         load_rate_per_kw=float(table["load_term"].sum()),
         aux_rate_per_kw=float(table["aux_term"].sum()),
     )
+
+
+def carbon_cost_per_kwh(carbon_price_per_t: float, emission_factor_t_per_mwh: float) -> float:
+    """Cost of the emissions of one kWh taken from the grid.
+
+    Parameters
+    ----------
+    carbon_price_per_t : float
+        Carbon price [currency per tonne CO2], >= 0.
+    emission_factor_t_per_mwh : float
+        Grid emission factor [t CO2 per MWh], >= 0.
+
+    Returns
+    -------
+    float
+        [currency/kWh].
+
+    Notes
+    -----
+    cost = price * factor / 1000 (a MWh is 1000 kWh).
+
+    References
+    ----------
+    Unit arithmetic, common practice.
+    """
+    price = finite_scalar("carbon_price_per_t", carbon_price_per_t, low=0.0)
+    factor = finite_scalar("emission_factor_t_per_mwh", emission_factor_t_per_mwh, low=0.0, high=5.0)
+    return price * factor / 1000.0
 
 
 def rates_fixed_charge_rate(

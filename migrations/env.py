@@ -30,6 +30,12 @@ def run_migrations_online() -> None:
 
 
 def _run(connection) -> None:
+    if connection.dialect.name == "sqlite":
+        # Batch mode rebuilds a table by copy-and-drop; with foreign keys on, dropping the old
+        # table would cascade-delete the rows that refer to it. SQLite ignores this pragma
+        # inside a transaction, so it is set before Alembic begins one.
+        connection.exec_driver_sql("PRAGMA foreign_keys=OFF")
+        connection.commit()
     context.configure(
         connection=connection,
         target_metadata=target_metadata,

@@ -15,7 +15,7 @@ from pydantic import ValidationError
 
 from server import api, pages
 from server.auth import ANY_ROLE, NotAuthenticated
-from server.errors import Conflict, InvalidField, ServiceError
+from server.errors import Conflict, ImportRefused, InvalidField, ServiceError
 from server.middleware import BodySizeLimit, SecurityHeaders
 from server.settings import Settings, get_settings
 from server.storage.database import Database
@@ -55,6 +55,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.db = Database(settings.database_url)
     _error_handlers(app)
+    pages.install_page_errors(app)
 
     @app.get("/healthz", tags=["operations"])
     def healthz() -> dict[str, str]:
@@ -116,6 +117,8 @@ def _error_handlers(app: FastAPI) -> None:
         body: dict = {"detail": exc.message}
         if isinstance(exc, Conflict) and exc.current is not None:
             body["current"] = exc.current
+        if isinstance(exc, ImportRefused):
+            body["problems"] = exc.problems
         headers = {"WWW-Authenticate": "Bearer"} if exc.status_code == 401 else None
         return JSONResponse(body, status_code=exc.status_code, headers=headers)
 

@@ -38,7 +38,7 @@ def _bearer(request: Request) -> str | None:
     return value.strip() if scheme.lower() == "bearer" and value.strip() else None
 
 
-def _same_origin(request: Request) -> bool:
+def same_origin(request: Request) -> bool:
     """An Origin (or, failing that, Referer) header must name this very site when present."""
     source = request.headers.get("origin") or request.headers.get("referer")
     if not source:
@@ -48,7 +48,7 @@ def _same_origin(request: Request) -> bool:
 
 
 async def _check_csrf(request: Request, principal: users.Principal) -> None:
-    if not _same_origin(request):
+    if not same_origin(request):
         raise Forbidden("This request came from another site and was refused.")
     sent = request.headers.get(CSRF_HEADER)
     if sent is None and request.headers.get("content-type", "").startswith(

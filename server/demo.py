@@ -13,6 +13,7 @@ from sqlalchemy.orm import Session
 
 from server import schemas
 from server.services.cost_bases import create_cost_basis
+from server.services.load_shapes import create_load_shape
 from server.services.offers import add_offer
 from server.services.tenders import create_tender
 from server.services.users import create_user
@@ -55,18 +56,55 @@ COST_BASES = [
     ),
 ]
 
+# Typical days for the two kinds of feeder the lots serve (invented curves, pu of the day's peak).
+LOAD_SHAPES = [
+    schemas.DailyShapeCreate(
+        name="Harrowmere residential feeder",
+        year=2026,
+        seasons=[
+            schemas.SeasonIn(
+                name="Winter", months=[1, 2, 3, 10, 11, 12],
+                weekday=[0.45, 0.4, 0.38, 0.37, 0.38, 0.45, 0.62, 0.75, 0.68, 0.6, 0.58, 0.6,
+                         0.62, 0.6, 0.6, 0.66, 0.8, 0.95, 1.0, 0.96, 0.88, 0.76, 0.62, 0.52],
+                weekend=[0.5, 0.45, 0.42, 0.4, 0.4, 0.43, 0.5, 0.62, 0.72, 0.76, 0.76, 0.75,
+                         0.74, 0.72, 0.7, 0.74, 0.84, 0.95, 0.98, 0.94, 0.86, 0.76, 0.64, 0.55],
+            ),
+            schemas.SeasonIn(
+                name="Summer", months=[4, 5, 6, 7, 8, 9],
+                weekday=[0.3, 0.27, 0.26, 0.25, 0.26, 0.3, 0.4, 0.48, 0.45, 0.42, 0.42, 0.44,
+                         0.46, 0.45, 0.45, 0.48, 0.55, 0.62, 0.66, 0.66, 0.62, 0.55, 0.44, 0.35],
+                weekend=[0.33, 0.3, 0.28, 0.27, 0.27, 0.29, 0.34, 0.42, 0.5, 0.54, 0.55, 0.55,
+                         0.54, 0.52, 0.5, 0.52, 0.57, 0.62, 0.64, 0.63, 0.6, 0.54, 0.45, 0.37],
+            ),
+        ],
+    ),
+    schemas.DailyShapeCreate(
+        name="Harrowmere industrial estate",
+        year=2026,
+        seasons=[
+            schemas.SeasonIn(
+                name="All year", months=list(range(1, 13)),
+                weekday=[0.35] * 6 + [0.7, 0.9] + [1.0] * 9 + [0.85, 0.6] + [0.4] * 5,
+                weekend=[0.3] * 24,
+            ),
+        ],
+    ),
+]
+
 LOTS = [
+    # The pole-mounted lot carries the utility's own, stricter no-load cap; every lot must meet
+    # the EU Tier 1 losses.
     schemas.LotCreate(
         name="100 kVA pole-mounted", rating_kva=100, phases=3, hv_kv=20, lv_kv=0.4,
-        insulation="liquid", quantity=120, max_no_load_loss_w=145, max_load_loss_w=1750, impedance_pct=4.0,
+        insulation="liquid", quantity=120, max_no_load_loss_w=140, impedance_pct=4.0, limit_tables=["eu-tier-1"],
     ),
     schemas.LotCreate(
         name="400 kVA ground-mounted", rating_kva=400, phases=3, hv_kv=20, lv_kv=0.4,
-        insulation="liquid", quantity=40, max_no_load_loss_w=430, max_load_loss_w=4600, impedance_pct=4.0,
+        insulation="liquid", quantity=40, impedance_pct=4.0, limit_tables=["eu-tier-1"],
     ),
     schemas.LotCreate(
         name="1000 kVA ground-mounted", rating_kva=1000, phases=3, hv_kv=20, lv_kv=0.4,
-        insulation="liquid", quantity=8, max_no_load_loss_w=770, max_load_loss_w=10500, impedance_pct=6.0,
+        insulation="liquid", quantity=8, impedance_pct=6.0, limit_tables=["eu-tier-1"],
     ),
 ]
 
@@ -80,20 +118,22 @@ BIDDERS = [
 
 # Per lot, per bidder: unit price (EUR), no-load loss (W), load loss (W), aux loss (W),
 # impedance (%), no-load current (%), delivery (weeks). The cheapest price never has the
-# lowest total owning cost, and each lot has a different leader under the present-worth basis.
+# lowest total owning cost, each lot has a different leader under the present-worth basis, and
+# two offers break a rule: the cheapest 100 kVA offer exceeds the utility's no-load cap, and the
+# 400 kVA offer that would have the lowest TOC exceeds the EU Tier 1 no-load loss.
 OFFERS = {
     0: [
-        (3950, 190, 1700, 0, 4.0, 1.2, 10),
-        (4420, 150, 1450, 0, 4.1, 0.9, 12),
+        (3950, 145, 1750, 0, 4.0, 1.2, 10),
+        (4420, 140, 1450, 0, 4.1, 0.9, 12),
         (4690, 125, 1250, 0, 4.0, 0.8, 14),
-        (4150, 175, 1600, 0, 3.9, 1.0, 9),
+        (4150, 135, 1600, 0, 3.9, 1.0, 9),
         (4950, 75, 1300, 0, 4.2, 0.5, 18),
     ],
     1: [
         (11200, 430, 4600, 0, 4.0, 0.9, 12),
         (12400, 370, 3900, 0, 4.1, 0.7, 14),
         (13100, 330, 3250, 0, 4.0, 0.6, 16),
-        (11900, 520, 3600, 0, 4.2, 1.0, 10),
+        (11900, 440, 3000, 0, 4.2, 1.0, 10),
         (14800, 220, 3400, 0, 4.1, 0.4, 20),
     ],
     2: [
@@ -126,6 +166,14 @@ def seed_demo(session: Session) -> bool:
     if not is_empty(session):
         return False
     bases = [create_cost_basis(session, body) for body in COST_BASES]
+    residential, industrial = (create_load_shape(session, body) for body in LOAD_SHAPES)
+    # The pole-mounted lot serves houses, the 1000 kVA lot an industrial estate: each gets its own
+    # loading, so its load-loss rate differs from the basis's.
+    lots = [
+        LOTS[0].model_copy(update={"load_shape_id": residential.id, "peak_load_pu": 0.7, "load_growth_pct": 1.0}),
+        LOTS[1],
+        LOTS[2].model_copy(update={"load_shape_id": industrial.id, "peak_load_pu": 0.65}),
+    ]
     tender = create_tender(
         session,
         schemas.TenderCreate(
@@ -134,7 +182,7 @@ def seed_demo(session: Session) -> bool:
             currency="EUR",
             status="evaluation",
             cost_basis_id=bases[0].id,
-            lots=LOTS,
+            lots=lots,
         ),
     )
     for index, lot in enumerate(tender.lots):

@@ -36,3 +36,13 @@ class InvalidField(ServiceError):
         super().__init__(f"{field}: {message}")
         self.field = field
         self.detail = message
+
+
+class ImportRefused(ServiceError):
+    """An uploaded file has problems; nothing was stored. ``problems`` name rows and columns."""
+
+    status_code = 422
+
+    def __init__(self, message: str, problems: list[dict]) -> None:
+        super().__init__(message)
+        self.problems = problems

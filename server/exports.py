@@ -37,9 +37,10 @@ def write_csv(header: Sequence[str], rows: Iterable[Sequence[object]]) -> str:
 
 
 RANKING_COLUMNS = (
-    "rank", "offer_id", "bidder", "unit_price", "no_load_loss_w", "load_loss_w", "aux_loss_w",
+    "rank", "offer_id", "bidder", "unit_price", "offer_currency", "offer_unit_price",
+    "no_load_loss_w", "load_loss_w", "aux_loss_w",
     "capitalised_no_load", "capitalised_load", "capitalised_aux", "toc_per_unit", "toc_total",
-    "efficiency_50_pct",
+    "efficiency_50_pct", "compliant", "reasons",
 )
 BASIS_COLUMNS = (
     "currency", "cost_basis", "cost_basis_revision",
@@ -49,17 +50,80 @@ BASIS_COLUMNS = (
 
 def ranking_csv(ranking: schemas.RankingOut) -> str:
     """The ranking rows, each carrying the cost basis and rates it was made with."""
-    money = {"unit_price", "capitalised_no_load", "capitalised_load", "capitalised_aux", "toc_per_unit", "toc_total"}
     basis = (
         ranking.currency, ranking.cost_basis_name, ranking.cost_basis_revision,
         round(ranking.no_load_rate_per_kw, 4), round(ranking.load_rate_per_kw, 4), round(ranking.aux_rate_per_kw, 4),
     )
+    return write_csv(RANKING_COLUMNS + BASIS_COLUMNS, [[*cells, *basis] for cells in ranking_cells(ranking)])
+
+
+def ranking_cells(ranking: schemas.RankingOut) -> list[list[object]]:
+    """One list of cells per ranking row, in RANKING_COLUMNS order (shared by CSV and XLSX)."""
+    money = {"unit_price", "offer_unit_price", "capitalised_no_load", "capitalised_load", "capitalised_aux",
+             "toc_per_unit", "toc_total"}
     rows = []
     for row in ranking.rows:
         values = row.model_dump()
-        cells = [
+        values["rank"] = "" if row.rank is None else row.rank
+        values["compliant"] = "yes" if row.compliant else "no"
+        values["reasons"] = "; ".join(row.reasons)
+        rows.append([
             round(values[c], 2) if c in money else round(values[c], 4) if c == "efficiency_50_pct" else values[c]
             for c in RANKING_COLUMNS
-        ]
-        rows.append([*cells, *basis])
-    return write_csv(RANKING_COLUMNS + BASIS_COLUMNS, rows)
+        ])
+    return rows
+
+
+def _text_cell(cell, value: str) -> None:
+    """Store text as text: openpyxl would otherwise turn a leading '=' into a formula."""
+    cell.value = value
+    cell.data_type = "s"
+
+
+def write_xlsx(sheets: list[tuple[str, list[str], list[list[object]]]]) -> bytes:
+    """A workbook with one sheet per (title, header, rows); numbers as numbers, no formulas."""
+    from openpyxl import Workbook
+    from openpyxl.styles import Font
+
+    book = Workbook()
+    book.remove(book.active)
+    for title, header, rows in sheets:
+        sheet = book.create_sheet(title[:31])
+        for column, name in enumerate(header, start=1):
+            cell = sheet.cell(row=1, column=column)
+            _text_cell(cell, name)
+            cell.font = Font(bold=True)
+        for r, row in enumerate(rows, start=2):
+            for column, value in enumerate(row, start=1):
+                cell = sheet.cell(row=r, column=column)
+                if isinstance(value, str):
+                    _text_cell(cell, value)
+                else:
+                    cell.value = value
+        for column, name in enumerate(header, start=1):
+            sheet.column_dimensions[sheet.cell(row=1, column=column).column_letter].width = max(12, min(40, len(name) + 2))
+        sheet.freeze_panes = "A2"
+    buffer = io.BytesIO()
+    book.save(buffer)
+    return buffer.getvalue()
+
+
+def ranking_xlsx(ranking: schemas.RankingOut, basis_inputs: dict, method: str) -> bytes:
+    """The ranking with its breakdown and compliance, and a sheet with the cost basis and rates."""
+    basis_rows: list[list[object]] = [
+        ["cost basis", ranking.cost_basis_name],
+        ["revision", ranking.cost_basis_revision],
+        ["method", method],
+        ["currency", ranking.currency],
+        ["no_load_rate_per_kw (A)", ranking.no_load_rate_per_kw],
+        ["load_rate_per_kw (B)", ranking.load_rate_per_kw],
+        ["aux_rate_per_kw (C)", ranking.aux_rate_per_kw],
+        ["loading", ranking.loading.note],
+        ["limit tables", ", ".join(ranking.limit_tables) or "none"],
+    ]
+    for key, value in sorted(basis_inputs.items()):
+        basis_rows.append([key, ", ".join(map(str, value)) if isinstance(value, list) else value])
+    return write_xlsx([
+        ("Ranking", list(RANKING_COLUMNS), ranking_cells(ranking)),
+        ("Cost basis", ["item", "value"], basis_rows),
+    ])

@@ -5,7 +5,7 @@ Percentages are ``_pct`` here and become fractions when they reach ``domain/``.
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, StringConstraints
@@ -63,6 +63,12 @@ class PresentWorthInputs(Strict):
     loss_factor: Fraction
     responsibility_factor: Fraction = 1.0
     cooling_hours_per_year: Annotated[float, Field(ge=0, le=8784)] = 0.0
+    energy_price_path_per_kwh: Annotated[list[Annotated[float, Field(ge=0, le=100)]], Field(max_length=100)] | None = Field(
+        default=None,
+        description="An explicit energy price for each year 1..years; replaces the price and its escalation.",
+    )
+    carbon_price_per_t: Annotated[float, Field(ge=0, le=10_000)] = 0.0
+    emission_factor_t_per_mwh: Annotated[float, Field(ge=0, le=5)] = 0.0
 
 
 class FixedChargeRateInputs(Strict):
@@ -76,6 +82,8 @@ class FixedChargeRateInputs(Strict):
     peak_load_pu: Annotated[float, Field(ge=0, le=10)]
     loss_factor: Fraction
     cooling_hours_per_year: Annotated[float, Field(ge=0, le=8784)] = 0.0
+    carbon_price_per_t: Annotated[float, Field(ge=0, le=10_000)] = 0.0
+    emission_factor_t_per_mwh: Annotated[float, Field(ge=0, le=5)] = 0.0
 
 
 MethodInputs = Annotated[
@@ -137,6 +145,7 @@ class CostBasisRevisionOut(RatesOut):
     method: str
     inputs: dict[str, Any]
     created_at: datetime
+    created_by: str | None = None
 
 
 class CostBasisOut(RatesOut):
@@ -173,6 +182,18 @@ class LotFields(Strict):
     max_no_load_loss_w: LossW | None = None
     max_load_loss_w: LossW | None = None
     impedance_pct: Annotated[float, Field(gt=0, le=100)] | None = None
+    load_shape_id: Annotated[int, Field(ge=1)] | None = Field(
+        default=None, description="The lot's own load shape; its loss factor replaces the basis's."
+    )
+    peak_load_pu: Annotated[float, Field(ge=0, le=10)] | None = Field(
+        default=None, description="The lot's initial peak loading; replaces the basis's."
+    )
+    load_growth_pct: Annotated[float, Field(ge=-50, le=100)] | None = Field(
+        default=None, description="The lot's yearly load growth; replaces the basis's."
+    )
+    limit_tables: Annotated[list[Annotated[str, StringConstraints(max_length=64)]], Field(max_length=20)] = Field(
+        default_factory=list, description="Keys of the limit tables offers must meet (see /api/v1/limit-tables)."
+    )
 
 
 class LotCreate(LotFields):
@@ -193,6 +214,10 @@ class LotPatch(Strict):
     max_no_load_loss_w: LossW | None = None
     max_load_loss_w: LossW | None = None
     impedance_pct: Annotated[float, Field(gt=0, le=100)] | None = None
+    load_shape_id: Annotated[int, Field(ge=1)] | None = None
+    peak_load_pu: Annotated[float, Field(ge=0, le=10)] | None = None
+    load_growth_pct: Annotated[float, Field(ge=-50, le=100)] | None = None
+    limit_tables: Annotated[list[Annotated[str, StringConstraints(max_length=64)]], Field(max_length=20)] | None = None
 
 
 class LotOut(Out):
@@ -211,7 +236,17 @@ class LotOut(Out):
     max_no_load_loss_w: float | None
     max_load_loss_w: float | None
     impedance_pct: float | None
+    load_shape_id: int | None = None
+    peak_load_pu: float | None = None
+    load_growth_pct: float | None = None
+    limit_tables: list[str] = Field(default_factory=list)
     offer_count: int = 0
+
+
+ExchangeRates = Annotated[
+    dict[Currency, Annotated[float, Field(gt=0, le=1e6)]],
+    Field(max_length=50, description="Tender currency per one unit of each other currency, fixed at bid opening."),
+]
 
 
 class TenderCreate(Strict):
@@ -219,6 +254,8 @@ class TenderCreate(Strict):
     title: Text
     currency: Currency
     status: TenderStatus = "draft"
+    bid_opening_date: date | None = None
+    exchange_rates: ExchangeRates = Field(default_factory=dict)
     cost_basis_id: int = Field(ge=1)
     cost_basis_revision: Annotated[int, Field(ge=1)] | None = Field(
         default=None, description="Defaults to the basis's latest revision."
@@ -232,6 +269,8 @@ class TenderPatch(Strict):
     title: Text | None = None
     currency: Currency | None = None
     status: TenderStatus | None = None
+    bid_opening_date: date | None = None
+    exchange_rates: ExchangeRates | None = None
     cost_basis_id: Annotated[int, Field(ge=1)] | None = None
     cost_basis_revision: Annotated[int, Field(ge=1)] | None = None
 
@@ -243,6 +282,8 @@ class TenderOut(BaseModel):
     title: str
     currency: str
     status: str
+    bid_opening_date: date | None = None
+    exchange_rates: dict[str, float] = Field(default_factory=dict)
     cost_basis_id: int
     cost_basis_name: str
     cost_basis_revision: int
@@ -256,6 +297,7 @@ class TenderOut(BaseModel):
 class OfferCreate(Strict):
     bidder: Name
     unit_price: Annotated[float, Field(ge=0, le=MAX_PRICE)]
+    currency: Currency | None = Field(default=None, description="The price's currency; the tender's when left out.")
     no_load_loss_w: LossW
     load_loss_w: LossW
     aux_loss_w: LossW = 0.0
@@ -269,6 +311,7 @@ class OfferPatch(Strict):
     version: Version
     bidder: Name | None = None
     unit_price: Annotated[float, Field(ge=0, le=MAX_PRICE)] | None = None
+    currency: Currency | None = None
     no_load_loss_w: LossW | None = None
     load_loss_w: LossW | None = None
     aux_loss_w: LossW | None = None
@@ -284,6 +327,7 @@ class OfferOut(Out):
     version: int
     bidder: str
     unit_price: float
+    currency: str | None = None
     no_load_loss_w: float
     load_loss_w: float
     aux_loss_w: float
@@ -298,10 +342,14 @@ class OfferOut(Out):
 # --- ranking -------------------------------------------------------------------------------
 
 class RankingRowOut(BaseModel):
-    rank: int
+    rank: int | None = Field(description="Position among compliant offers; null for a non-compliant offer.")
     offer_id: int
     bidder: str
-    unit_price: float
+    unit_price: float = Field(description="In the tender's currency.")
+    offer_currency: str = ""
+    offer_unit_price: float = Field(0.0, description="As offered, in offer_currency.")
+    compliant: bool = True
+    reasons: list[str] = Field(default_factory=list, description="Why a non-compliant offer does not rank.")
     no_load_loss_w: float
     load_loss_w: float
     aux_loss_w: float
@@ -316,7 +364,20 @@ class RankingRowOut(BaseModel):
     efficiency_100_pct: float
 
 
+class LoadingOut(BaseModel):
+    """Which loading priced the load loss of a lot, and why."""
+
+    source: Literal["cost basis", "lot"]
+    load_shape_id: int | None = None
+    load_shape_name: str | None = None
+    loss_factor: float | None = None
+    peak_load_pu: float | None = None
+    load_growth_pct: float | None = None
+    note: str
+
+
 class RankingOut(RatesOut):
+    loading: LoadingOut
     lot_id: int
     tender_id: int
     currency: str
@@ -324,6 +385,8 @@ class RankingOut(RatesOut):
     cost_basis_id: int
     cost_basis_name: str
     cost_basis_revision: int
+    limit_tables: list[str] = Field(default_factory=list)
+    excluded: int = Field(0, description="Non-compliant offers left out of the ranking.")
     rows: list[RankingRowOut]
 
 
@@ -417,3 +480,271 @@ class VerificationOut(BaseModel):
     verified: bool
     sha256: str
     recomputed_sha256: str
+
+
+# --- load shapes ----------------------------------------------------------------------------
+
+Hourly = Annotated[list[Annotated[float, Field(ge=0, le=1e7)]], Field(min_length=24, max_length=24)]
+
+
+class SeasonIn(Strict):
+    name: Name
+    months: Annotated[list[Annotated[int, Field(ge=1, le=12)]], Field(min_length=1, max_length=12)]
+    weekday: Hourly
+    weekend: Hourly
+
+
+class DailyShapeCreate(Strict):
+    """A load shape from typical days: 24 hourly values per day type and season."""
+
+    kind: Literal["daily"] = "daily"
+    name: Name
+    year: Annotated[int, Field(ge=1900, le=2200)] = 2026
+    seasons: Annotated[list[SeasonIn], Field(min_length=1, max_length=12)]
+
+
+class HourlyShapeCreate(Strict):
+    """A load shape from a year of hourly values (8760 or 8784) in pu of peak or in kVA."""
+
+    kind: Literal["hourly"] = "hourly"
+    name: Name
+    year: Annotated[int, Field(ge=1900, le=2200)] = 2026
+    unit: Literal["pu", "kva"] = "pu"
+    values: Annotated[list[Annotated[float, Field(ge=0, le=1e9)]], Field(min_length=8760, max_length=8784)]
+
+
+LoadShapeCreate = Annotated[DailyShapeCreate | HourlyShapeCreate, Field(discriminator="kind")]
+
+
+class LoadShapeOut(Out):
+    id: int
+    version: int
+    name: str
+    kind: str
+    unit: str
+    year: int
+    source: str
+    filled_hours: int
+    hours: int
+    peak: float
+    load_factor: float
+    loss_factor: float
+    rms_pu: float
+    peak_pu: float = Field(1.0, description="The shape's own peak in pu of itself; lots scale it by their peak loading.")
+    equivalent_hours: float
+    seasons: list[dict[str, Any]] | None = None
+    created_at: datetime
+
+
+class LoadShapeValuesOut(BaseModel):
+    id: int
+    unit: str
+    year: int
+    values: list[float]
+    duration_curve: list[float]
+
+
+class ImportProblem(BaseModel):
+    rows: list[int]
+    column: str | None = None
+    message: str
+
+
+class ImportRefusedOut(BaseModel):
+    detail: str
+    problems: list[ImportProblem]
+
+
+# --- cost basis revisions: differences, preview, workings -----------------------------------
+
+class FieldChangeOut(BaseModel):
+    field: str
+    before: Any = None
+    after: Any = None
+
+
+class RevisionDiffOut(BaseModel):
+    cost_basis_id: int
+    revision: int
+    against: int
+    changes: list[FieldChangeOut]
+
+
+class PreviewRowOut(BaseModel):
+    offer_id: int
+    bidder: str
+    rank_now: int
+    rank_then: int
+    toc_now: float
+    toc_then: float
+    toc_change: float
+
+
+class PreviewLotOut(BaseModel):
+    lot_id: int
+    lot_name: str
+    tender_id: int
+    tender_reference: str
+    current_revision: int
+    order_changes: bool
+    leader_changes: bool
+    rows: list[PreviewRowOut]
+
+
+class RevisionPreviewOut(BaseModel):
+    cost_basis_id: int
+    revision: int
+    lots: list[PreviewLotOut]
+    changed_lot_ids: list[int] = Field(description="The lots whose order of offers would change.")
+
+
+class RateTermOut(BaseModel):
+    rate: Literal["A", "B", "C"]
+    component: str
+    value_per_kw: float
+    formula: str
+
+
+class WorkingsOut(RatesOut):
+    cost_basis_id: int
+    name: str
+    revision: int
+    method: str
+    currency: str
+    inputs: dict[str, Any]
+    conventions: list[str]
+    terms: list[RateTermOut]
+    table_columns: list[str]
+    table: list[list[float]]
+
+
+# --- compliance, limit tables, imports ------------------------------------------------------
+
+class FindingOut(BaseModel):
+    rule: str
+    limit: float | None
+    value: float | None
+    unit: str
+    source: str
+    passed: bool | None = Field(description="null: the rule could not be applied to this unit (said in rule).")
+    note: str = ""
+
+
+class WarningOut(BaseModel):
+    field: str
+    message: str
+
+
+class OfferComplianceOut(BaseModel):
+    offer_id: int
+    bidder: str
+    compliant: bool
+    findings: list[FindingOut]
+    warnings: list[WarningOut]
+
+
+LimitKind = Literal["max_losses", "min_efficiency", "min_pei"]
+TableStatus = Literal["verified", "from memory", "user-defined"]
+
+
+class LimitRow(Strict):
+    rating_kva: Annotated[float, Field(gt=0, le=MAX_RATING_KVA)]
+    max_no_load_loss_w: LossW | None = None
+    max_load_loss_w: LossW | None = None
+    min_pct: Annotated[float, Field(gt=50, le=100)] | None = Field(
+        default=None, description="Minimum efficiency or peak efficiency index [%]."
+    )
+
+
+class LimitTableCreate(Strict):
+    key: Annotated[str, StringConstraints(pattern=r"^[a-z0-9][a-z0-9-]{1,63}$")]
+    name: Text
+    source: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=300)]
+    status: TableStatus = "user-defined"
+    kind: LimitKind
+    phases: Literal[1, 3] | None = None
+    insulation: Literal["liquid", "dry"] | None = None
+    per_unit_load: Annotated[float, Field(gt=0, le=1.5)] = 0.5
+    rows: Annotated[list[LimitRow], Field(min_length=1, max_length=200)]
+
+
+class LimitTablePatch(Strict):
+    version: Version
+    name: Text | None = None
+    source: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=300)] | None = None
+    status: TableStatus | None = None
+    phases: Literal[1, 3] | None = None
+    insulation: Literal["liquid", "dry"] | None = None
+    per_unit_load: Annotated[float, Field(gt=0, le=1.5)] | None = None
+    rows: Annotated[list[LimitRow], Field(min_length=1, max_length=200)] | None = None
+
+
+class LimitTableOut(BaseModel):
+    key: str
+    name: str
+    source: str
+    status: str
+    kind: str
+    built_in: bool
+    id: int | None = None
+    version: int | None = None
+    phases: int | None = None
+    insulation: str | None = None
+    per_unit_load: float
+    note: str = ""
+    rows: list[dict[str, float | None]]
+
+
+class TableReviewIn(Strict):
+    status: Literal["verified", "from memory"]
+    note: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=2000)]
+
+
+class ImportCellOut(BaseModel):
+    column: str
+    message: str
+
+
+class ImportRowOut(BaseModel):
+    row: int = Field(description="Spreadsheet row number; the header is row 1.")
+    lot: str
+    lot_id: int | None
+    bidder: str
+    action: Literal["create", "update", "unchanged", "refused"]
+    values: dict[str, Any]
+    errors: list[ImportCellOut]
+    warnings: list[ImportCellOut]
+
+
+class OfferImportOut(BaseModel):
+    id: int
+    tender_id: int
+    filename: str
+    created_by: str
+    created_at: datetime
+    committed_at: datetime | None
+    rows_total: int
+    rows_with_errors: int
+    rows_with_warnings: int
+    creates: int
+    updates: int
+    unchanged: int
+    can_commit: bool
+    rows: list[ImportRowOut]
+
+
+class EfficiencyCurveOut(BaseModel):
+    offer_id: int
+    bidder: str
+    efficiency_pct: list[float]
+    max_efficiency_loading_pu: float | None
+    max_efficiency_pct: float | None
+
+
+class EfficiencyCurvesOut(BaseModel):
+    lot_id: int
+    loading_pu: list[float]
+    curves: list[EfficiencyCurveOut]
+    reference_points: list[dict[str, Any]] = Field(
+        default_factory=list, description="Regulatory points: a minimum efficiency at a loading, or a minimum PEI."
+    )

@@ -2,11 +2,13 @@
 
 from fastapi import APIRouter
 
-from server.api import cost_bases, offers, people, records, tenders
+from server.api import cost_bases, intake, load_shapes, offers, people, records, tenders
 
 router = APIRouter(prefix="/api/v1")
 router.include_router(people.router)
 router.include_router(cost_bases.router)
+router.include_router(load_shapes.router)
 router.include_router(tenders.router)
 router.include_router(offers.router)
 router.include_router(records.router)
+router.include_router(intake.router)

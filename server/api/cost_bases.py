@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Body
+from fastapi import APIRouter, Body, Response
 
 from server import schemas
 from server.auth import ANY_ROLE, PLANNER
 from server.deps import SessionDep
 from server.services import cost_bases as service
+from server.services import revisions
 
 
 router = APIRouter(prefix="/cost-bases", tags=["cost bases"])
@@ -32,3 +33,45 @@ def get_cost_basis(cost_basis_id: int, session: SessionDep):
 def revise_cost_basis(cost_basis_id: int, patch: schemas.CostBasisPatch, session: SessionDep):
     """Change name, currency, method or inputs; changed inputs make a new revision."""
     return service.cost_basis_out(service.revise_cost_basis(session, cost_basis_id, patch), detail=True)
+
+
+@router.get("/{cost_basis_id}/revisions", response_model=list[schemas.CostBasisRevisionOut], dependencies=[ANY_ROLE])
+def list_revisions(cost_basis_id: int, session: SessionDep):
+    """Every revision, oldest first, with who made it and when."""
+    return [service.revision_out(r) for r in service.get_cost_basis(session, cost_basis_id).revisions]
+
+
+@router.get("/{cost_basis_id}/revisions/{revision}/diff", response_model=schemas.RevisionDiffOut,
+            dependencies=[ANY_ROLE])
+def diff_revisions(cost_basis_id: int, revision: int, against: int, session: SessionDep):
+    """What changed from revision ``against`` to ``revision``."""
+    return revisions.diff_revisions(session, cost_basis_id, revision, against)
+
+
+@router.get("/{cost_basis_id}/revisions/{revision}/preview", response_model=schemas.RevisionPreviewOut,
+            dependencies=[ANY_ROLE])
+def preview_revision(cost_basis_id: int, revision: int, session: SessionDep):
+    """Re-rank every open lot on this basis under ``revision``; nothing is stored."""
+    return revisions.preview_revision(session, cost_basis_id, revision)
+
+
+@router.get("/{cost_basis_id}/revisions/{revision}/workings", response_model=schemas.WorkingsOut,
+            dependencies=[ANY_ROLE])
+def revision_workings(cost_basis_id: int, revision: int, session: SessionDep):
+    """How the rates were made: every term and the year-by-year present-worth table."""
+    return revisions.workings(session, cost_basis_id, revision)
+
+
+@router.get(
+    "/{cost_basis_id}/revisions/{revision}/workings.csv",
+    dependencies=[ANY_ROLE],
+    response_class=Response,
+    responses={200: {"content": {"text/csv": {}}, "description": "The year-by-year table as CSV."}},
+)
+def revision_workings_csv(cost_basis_id: int, revision: int, session: SessionDep):
+    out = revisions.workings(session, cost_basis_id, revision)
+    return Response(
+        revisions.workings_csv(out),
+        media_type="text/csv; charset=utf-8",
+        headers={"Content-Disposition": f'attachment; filename="cost-basis-{cost_basis_id}-r{revision}-workings.csv"'},
+    )

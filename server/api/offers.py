@@ -42,9 +42,13 @@ def delete_offer(offer_id: int, session: SessionDep):
 
 
 @router.get("/lots/{lot_id}/ranking", response_model=schemas.RankingOut, dependencies=[ANY_ROLE])
-def get_ranking(lot_id: int, session: SessionDep):
-    """Offers ranked by total owning cost, lowest first, with the rates used."""
-    return lot_ranking(session, lot_id)
+def get_ranking(lot_id: int, session: SessionDep, include_non_compliant: bool = False):
+    """Compliant offers ranked by total owning cost, lowest first, with the rates and loading used.
+
+    Non-compliant offers are left out (counted in ``excluded``); with
+    ``include_non_compliant=true`` they follow, unranked, with their reasons.
+    """
+    return lot_ranking(session, lot_id, include_non_compliant)
 
 
 @router.get(
@@ -53,8 +57,8 @@ def get_ranking(lot_id: int, session: SessionDep):
     response_class=Response,
     responses={200: {"content": {"text/csv": {}}, "description": "The ranking as CSV."}},
 )
-def get_ranking_csv(lot_id: int, session: SessionDep):
-    ranking = lot_ranking(session, lot_id)
+def get_ranking_csv(lot_id: int, session: SessionDep, include_non_compliant: bool = True):
+    ranking = lot_ranking(session, lot_id, include_non_compliant)
     return Response(
         content=ranking_csv(ranking),
         media_type="text/csv; charset=utf-8",

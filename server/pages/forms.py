@@ -32,6 +32,19 @@ async def read_form(request: Request) -> FormValues:
 FormDep = Annotated[FormValues, Depends(read_form)]
 
 
+async def read_lists(request: Request) -> dict[str, list[str]]:
+    """Every posted field with all of its values, for a group of checkboxes sharing a name."""
+    form = await request.form()
+    lists: dict[str, list[str]] = {}
+    for key, value in form.multi_items():
+        if isinstance(value, str):
+            lists.setdefault(key, []).append(value.strip())
+    return lists
+
+
+FormListsDep = Annotated[dict[str, list[str]], Depends(read_lists)]
+
+
 def _is_required(model: type[BaseModel], name: str) -> bool:
     return model.model_fields[name].is_required()
 
@@ -128,6 +141,12 @@ def plain_message(error: dict[str, Any]) -> str:
         return f"must be {_limit(ctx.get('le'))} or less"
     if kind == "less_than":
         return f"must be less than {_limit(ctx.get('lt'))}"
+    if kind == "string_too_short":
+        return f"must have at least {ctx.get('min_length')} characters"
+    if kind == "too_short":
+        return "choose at least one" if ctx.get("min_length") == 1 else f"choose at least {ctx.get('min_length')}"
+    if kind in {"date_parsing", "date_from_datetime_parsing", "date_from_datetime_inexact", "date_type"}:
+        return "must be a date such as 2026-03-31"
     if kind == "string_too_long":
         return f"must be at most {ctx.get('max_length')} characters"
     if kind == "string_pattern_mismatch":

@@ -7,12 +7,12 @@ from typing import Annotated
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import RedirectResponse
 
-from server.auth import ANY_ROLE, client_address
+from server.auth import ANY_ROLE, Forbidden, client_address, same_origin
 from server.deps import SessionDep
 from server.pages.forms import FormDep
 from server.pages.templating import render
-from server.security import SESSION_COOKIE, sign_cookie
-from server.services import users
+from server.security import SESSION_COOKIE, sign_cookie, unsign_cookie
+from server.services import pages_support, users
 from server.services.users import LoginRefused
 
 router = APIRouter()
@@ -32,13 +32,20 @@ def login_form(request: Request, target: Annotated[str | None, Query(alias="next
 
 @router.post("/login")
 def log_in(request: Request, session: SessionDep, form: FormDep):
+    """A fresh session at every log-in; the one the browser's old cookie named is revoked."""
+    # The log-in form has no session to carry a token yet, so another site could post it
+    # (log-in CSRF: the victim works signed in as the attacker). Its Origin gives it away.
+    if not same_origin(request):
+        raise Forbidden("This log-in came from another site and was refused.")
     settings = request.app.state.settings
     target = _local(form.get("next"))
+    old_token = unsign_cookie(settings.secret_key, request.cookies.get(SESSION_COOKIE))
     try:
-        token, _ = users.log_in(
-            session, settings, form.get("username", ""), form.get("password", ""), client_address(request), "browser"
+        token, _ = pages_support.log_in_replacing(
+            session, settings, form.get("username", ""), form.get("password", ""), client_address(request), old_token
         )
     except LoginRefused as exc:
+        # The service's own words: a lock-out says so and for how long.
         context = {"form": {"username": form.get("username", ""), "next": target}, "error": exc.message}
         return render(request, "login.html", context, status_code=401)
     response = RedirectResponse(target, status_code=303)
@@ -48,6 +55,7 @@ def log_in(request: Request, session: SessionDep, form: FormDep):
         max_age=settings.session_max_hours * 3600,
         httponly=True,
         samesite="lax",
+        # Behind a proxy that ends TLS the scheme reads "http", so production always insists.
         secure=request.url.scheme == "https" or settings.env == "production",
         path="/",
     )

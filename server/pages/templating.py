@@ -10,6 +10,8 @@ from fastapi import Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
+from server.pages import history
+
 TEMPLATE_DIR = Path(__file__).resolve().parents[1] / "templates"
 DASH = "\u2014"
 
@@ -22,6 +24,8 @@ def _who(request: Request) -> dict[str, Any]:
         "csrf_token": (principal.csrf_token or "") if principal else "",
         "may_buy": bool(principal and principal.has_any({"buyer"})),
         "may_plan": bool(principal and principal.has_any({"planner"})),
+        "may_approve": bool(principal and principal.has_any({"approver"})),
+        "may_admin": bool(principal and principal.has_any({"admin"})),
     }
 
 
@@ -112,8 +116,18 @@ templates.env.filters.update(
     sentence=sentence,
     method_name=lambda m: METHOD_NAMES.get(m, m),
     status_name=lambda s: STATUS_NAMES.get(s, s),
+    utc=history.fmt_utc,
+    iso_utc=history.iso_utc,
+    object_name=history.object_name,
+    action_name=history.action_name,
 )
-templates.env.globals.update(METHOD_NAMES=METHOD_NAMES, STATUS_NAMES=STATUS_NAMES, differs=differs)
+templates.env.globals.update(
+    METHOD_NAMES=METHOD_NAMES,
+    STATUS_NAMES=STATUS_NAMES,
+    differs=differs,
+    object_link=history.object_link,
+    diff_rows=history.diff_rows,
+)
 
 
 def is_htmx(request: Request) -> bool:

@@ -17,7 +17,7 @@ from server.pages.basis_form import chosen_method, input_label, method_boxes
 from server.pages.charts import toc_breakdown_chart
 from server.pages.forms import field_errors, full_inputs
 from server.pages.templating import input_value
-from server.services import cost_bases, offers, ranking, tenders
+from server.services import awards, cost_bases, locks, offers, pages_support, ranking, tenders
 
 # The offer boxes in the order the forms and the offers table show them.
 OFFER_FIELDS = [
@@ -41,7 +41,8 @@ def tender_list(session: Session) -> dict[str, Any]:
 
 def tender_detail(session: Session, tender_id: int) -> dict[str, Any]:
     tender = tenders.tender_out(session, tenders.get_tender(session, tender_id))
-    return {"tender": tender, "bases": basis_choices(session)}
+    awarded = pages_support.awarded_lot_ids(session, [lot.id for lot in tender.lots])
+    return {"tender": tender, "bases": basis_choices(session), "awarded_lots": awarded}
 
 
 def price_note(result: schemas.RankingOut) -> dict[str, Any] | None:
@@ -70,6 +71,25 @@ def ranking_view(session: Session, lot_id: int) -> dict[str, Any]:
     }
 
 
+def award_state(session: Session, lot_id: int) -> dict[str, Any]:
+    """The lot's standing award (if any), whom it went to, and the awards reopened since."""
+    record = locks.active_record(session, lot_id)
+    past = [r for r in awards.list_records(session, lot_id) if r.reopened_at is not None]
+    return {
+        "award": record,
+        "awarded_to": awarded_row(record) if record is not None else None,
+        "past_records": [(r, awarded_row(r)) for r in reversed(past)],
+        "locked": record is not None,
+        "award_form": {},
+        "award_errors": {},
+    }
+
+
+def awarded_row(record: Any) -> dict[str, Any]:
+    """The frozen ranking row of the offer a record awarded."""
+    return next((row for row in record.ranking if row["offer_id"] == record.awarded_offer_id), {})
+
+
 def lot_detail(session: Session, lot_id: int) -> dict[str, Any]:
     lot = tenders.get_lot(session, lot_id)
     count = tenders.offer_counts(session, [lot.id]).get(lot.id, 0)
@@ -81,6 +101,7 @@ def lot_detail(session: Session, lot_id: int) -> dict[str, Any]:
         "offer_boxes": OFFER_FIELDS,
         "offers": [offers.offer_out(o) for o in offers.list_offers(session, lot_id)],
         **ranking_view(session, lot_id),
+        **award_state(session, lot_id),
     }
 
 
@@ -90,7 +111,11 @@ def offer_values(offer: schemas.OfferOut) -> dict[str, Any]:
 
 def offer_row(session: Session, offer_id: int) -> dict[str, Any]:
     offer = offers.get_offer(session, offer_id)
-    return {"offer": offers.offer_out(offer), "currency": offer.lot.tender.currency}
+    return {
+        "offer": offers.offer_out(offer),
+        "currency": offer.lot.tender.currency,
+        "locked": locks.active_record(session, offer.lot_id) is not None,
+    }
 
 
 def offer_edit(
@@ -105,6 +130,8 @@ def offer_edit(
     After a conflict the form keeps what the person typed but carries the stored version,
     so that saving again is a deliberate choice to replace the other person's values.
     """
+    # An awarded lot's offer gets no edit form that could never be saved: say why instead.
+    locks.ensure_open(session, offers.get_offer(session, offer_id).lot)
     row = offer_row(session, offer_id)
     offer = row["offer"]
     values = dict(form) if form is not None else offer_values(offer)

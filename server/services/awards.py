@@ -13,6 +13,7 @@ from sqlalchemy.orm import Session
 from domain.rates import CapitalisationRates
 from domain.toc import OfferLosses, rank_offers
 from server.errors import Conflict, InvalidField
+from server.services.loading import lot_rates
 from server.services.locks import active_record, ensure_open
 from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
@@ -27,6 +28,7 @@ _OFFER_FIELDS = (
 _LOT_FIELDS = (
     "id", "name", "rating_kva", "phases", "hv_kv", "lv_kv", "frequency_hz", "insulation",
     "quantity", "reference_temp_c", "max_no_load_loss_w", "max_load_loss_w", "impedance_pct",
+    "load_shape_id", "peak_load_pu", "load_growth_pct",
 )
 
 
@@ -40,6 +42,7 @@ def freeze_inputs(session: Session, lot: Lot) -> dict[str, Any]:
     """Everything the ranking depends on, as plain data."""
     tender = lot.tender
     revision = tender.cost_basis_revision
+    rates, loading = lot_rates(lot, revision)
     offers = session.scalars(select(Offer).where(Offer.lot_id == lot.id).order_by(Offer.id)).all()
     return {
         "tender": {"id": tender.id, "reference": tender.reference, "title": tender.title, "currency": tender.currency},
@@ -50,9 +53,10 @@ def freeze_inputs(session: Session, lot: Lot) -> dict[str, Any]:
             "revision": revision.revision,
             "method": revision.method,
             "inputs": revision.inputs,
-            "no_load_rate_per_kw": revision.no_load_rate_per_kw,
-            "load_rate_per_kw": revision.load_rate_per_kw,
-            "aux_rate_per_kw": revision.aux_rate_per_kw,
+            "loading": loading.model_dump(),
+            "no_load_rate_per_kw": rates.no_load_rate_per_kw,
+            "load_rate_per_kw": rates.load_rate_per_kw,
+            "aux_rate_per_kw": rates.aux_rate_per_kw,
         },
         "offers": [{field: getattr(o, field) for field in _OFFER_FIELDS} for o in offers],
     }

@@ -9,10 +9,17 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session, selectinload
 
 from domain.errors import InvalidInput
-from domain.rates import CapitalisationRates, rates_direct, rates_fixed_charge_rate, rates_present_worth
+from domain.rates import (
+    CapitalisationRates,
+    carbon_cost_per_kwh,
+    rates_direct,
+    rates_fixed_charge_rate,
+    rates_present_worth,
+)
 from server import schemas
 from server.errors import InvalidField, NotFound
 from server.services.common import check_version, commit, get_or_404
+from server.storage import audit
 from server.storage.models import CostBasis, CostBasisRevision, utcnow
 
 _INPUTS = TypeAdapter(schemas.MethodInputs)
@@ -35,10 +42,13 @@ def rates_for(inputs: schemas.DirectInputs | schemas.PresentWorthInputs | schema
                 loss_factor=inputs.loss_factor,
                 responsibility_factor=inputs.responsibility_factor,
                 cooling_hours_per_year=inputs.cooling_hours_per_year,
+                energy_price_path_per_kwh=inputs.energy_price_path_per_kwh,
+                carbon_cost_per_kwh=carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
             )
         return rates_fixed_charge_rate(
             system_capacity_cost_per_kw_year=inputs.system_capacity_cost_per_kw_year,
-            energy_cost_per_kwh=inputs.energy_cost_per_kwh,
+            energy_cost_per_kwh=inputs.energy_cost_per_kwh
+            + carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
             fixed_charge_rate=inputs.fixed_charge_rate_pct / 100,
             responsibility_factor=inputs.responsibility_factor,
             peak_load_pu=inputs.peak_load_pu,
@@ -66,7 +76,7 @@ def parse_inputs(data: dict[str, Any]):
     return _INPUTS.validate_python(data)
 
 
-def _new_revision(cost_basis: CostBasis, inputs, number: int) -> CostBasisRevision:
+def _new_revision(session: Session, cost_basis: CostBasis, inputs, number: int) -> CostBasisRevision:
     rates = rates_for(inputs)
     stored = inputs.model_dump(exclude={"method"})
     revision = CostBasisRevision(
@@ -76,6 +86,7 @@ def _new_revision(cost_basis: CostBasis, inputs, number: int) -> CostBasisRevisi
         no_load_rate_per_kw=rates.no_load_rate_per_kw,
         load_rate_per_kw=rates.load_rate_per_kw,
         aux_rate_per_kw=rates.aux_rate_per_kw,
+        created_by=audit.get_actor(session).username,
     )
     cost_basis.revisions.append(revision)
     return revision
@@ -91,7 +102,7 @@ def create_cost_basis(session: Session, data) -> CostBasis:
         raise InvalidField("name", f"a cost basis called '{data.name}' already exists.")
     inputs = parse_inputs(data.model_dump(exclude={"name", "currency"}))
     cost_basis = CostBasis(name=data.name, currency=data.currency)
-    _new_revision(cost_basis, inputs, 1)
+    _new_revision(session, cost_basis, inputs, 1)
     session.add(cost_basis)
     commit(session, "cost basis", unique_field="name")
     return cost_basis
@@ -134,7 +145,7 @@ def revise_cost_basis(session: Session, cost_basis_id: int, patch: schemas.CostB
     merged = {**(latest.inputs if method == latest.method else {}), **sent, "method": method}
     inputs = parse_inputs(merged)
     if inputs.method != latest.method or inputs.model_dump(exclude={"method"}) != latest.inputs:
-        _new_revision(cost_basis, inputs, latest.revision + 1)
+        _new_revision(session, cost_basis, inputs, latest.revision + 1)
     cost_basis.updated_at = utcnow()  # a new revision alone still bumps the basis's version
     commit(session, "cost basis", unique_field="name")
     session.refresh(cost_basis)
@@ -147,6 +158,7 @@ def revision_out(rev: CostBasisRevision) -> schemas.CostBasisRevisionOut:
         method=rev.method,
         inputs=rev.inputs,
         created_at=rev.created_at,
+        created_by=rev.created_by,
         no_load_rate_per_kw=rev.no_load_rate_per_kw,
         load_rate_per_kw=rev.load_rate_per_kw,
         aux_rate_per_kw=rev.aux_rate_per_kw,

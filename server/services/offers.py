@@ -23,10 +23,18 @@ def add_offer(session: Session, lot_id: int, data: schemas.OfferCreate) -> Offer
     limit = get_settings().max_offers_per_lot
     if count >= limit:
         raise InvalidField("lot", f"holds {count} offers already, the most one lot may hold.")
+    _check_currency(lot.tender, data.currency)
     offer = Offer(lot=lot, **data.model_dump())
     session.add(offer)
     commit(session, "offer")
     return offer
+
+
+def _check_currency(tender, currency: str | None) -> None:
+    if currency and currency != tender.currency and currency not in (tender.exchange_rates or {}):
+        raise InvalidField(
+            "currency", f"tender {tender.reference} has no exchange rate for {currency}; add it to the tender first."
+        )
 
 
 def list_offers(session: Session, lot_id: int) -> list[Offer]:
@@ -46,6 +54,8 @@ def patch_offer(session: Session, offer_id: int, patch: schemas.OfferPatch) -> O
     offer = get_offer(session, offer_id)
     ensure_open(session, offer.lot)
     check_version(offer, patch.version, "offer", current=offer_out(offer).model_dump(mode="json"))
+    if "currency" in patch.model_fields_set:
+        _check_currency(offer.lot.tender, patch.currency)
     apply_patch(offer, patch, _REQUIRED)
     commit(session, "offer")
     return offer

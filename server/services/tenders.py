@@ -8,14 +8,15 @@ from sqlalchemy.orm import Session, selectinload
 from server import schemas
 from server.errors import InvalidField
 from server.services.common import apply_patch, check_version, commit, get_or_404
+from server.services.compliance import check_keys
 from server.services.cost_bases import get_revision
 from server.services.locks import ensure_no_records, ensure_open, ensure_tender_open
-from server.storage.models import Lot, Offer, Tender
+from server.storage.models import LoadShape, Lot, Offer, Tender
 
-_TENDER_REQUIRED = {"reference", "title", "currency", "status"}
+_TENDER_REQUIRED = {"reference", "title", "currency", "status", "exchange_rates"}
 _LOT_REQUIRED = {
     "name", "rating_kva", "phases", "hv_kv", "lv_kv", "frequency_hz",
-    "insulation", "quantity", "reference_temp_c",
+    "insulation", "quantity", "reference_temp_c", "limit_tables",
 }
 
 
@@ -24,7 +25,18 @@ def _reference_taken(session: Session, reference: str, except_id: int | None = N
     return found is not None and found != except_id
 
 
+def _check_load_shapes(session: Session, lots: list) -> None:
+    for index, lot in enumerate(lots):
+        shape_id = getattr(lot, "load_shape_id", None)
+        if shape_id is not None and session.get(LoadShape, shape_id) is None:
+            field = f"lots.{index}.load_shape_id" if len(lots) > 1 else "load_shape_id"
+            raise InvalidField(field, f"there is no load shape {shape_id}.")
+
+
 def create_tender(session: Session, data: schemas.TenderCreate) -> Tender:
+    _check_load_shapes(session, data.lots)
+    for lot in data.lots:
+        check_keys(session, lot.limit_tables)
     if _reference_taken(session, data.reference):
         raise InvalidField("reference", f"a tender with reference '{data.reference}' already exists.")
     revision = get_revision(session, data.cost_basis_id, data.cost_basis_revision)
@@ -33,6 +45,8 @@ def create_tender(session: Session, data: schemas.TenderCreate) -> Tender:
         title=data.title,
         currency=data.currency,
         status=data.status,
+        bid_opening_date=data.bid_opening_date,
+        exchange_rates=data.exchange_rates,
         cost_basis_revision=revision,
         lots=[Lot(**lot.model_dump()) for lot in data.lots],
     )
@@ -58,8 +72,10 @@ def patch_tender(session: Session, tender_id: int, patch: schemas.TenderPatch) -
     check_version(tender, patch.version, "tender", current=tender_out(session, tender).model_dump(mode="json"))
     if patch.status == "awarded" and tender.status != "awarded":
         raise InvalidField("status", "a tender becomes awarded when an approver awards each of its lots.")
-    if {"currency", "cost_basis_id", "cost_basis_revision"} & patch.model_fields_set:
+    if {"currency", "cost_basis_id", "cost_basis_revision", "exchange_rates"} & patch.model_fields_set:
         ensure_tender_open(session, tender)
+    if patch.exchange_rates is not None:
+        _check_rates_cover_offers(session, tender, patch.exchange_rates, patch.currency or tender.currency)
     if patch.reference is not None and _reference_taken(session, patch.reference, tender.id):
         raise InvalidField("reference", f"a tender with reference '{patch.reference}' already exists.")
     apply_patch(tender, patch, _TENDER_REQUIRED, skip={"cost_basis_id", "cost_basis_revision"})
@@ -68,6 +84,14 @@ def patch_tender(session: Session, tender_id: int, patch: schemas.TenderPatch) -
         tender.cost_basis_revision = get_revision(session, basis_id, patch.cost_basis_revision)
     commit(session, "tender", unique_field="reference")
     return tender
+
+
+def _check_rates_cover_offers(session: Session, tender: Tender, rates: dict, currency: str) -> None:
+    lot_ids = [lot.id for lot in tender.lots]
+    used = set(session.scalars(select(Offer.currency).where(Offer.lot_id.in_(lot_ids), Offer.currency.is_not(None))))
+    missing = sorted(c for c in used if c != currency and c not in rates)
+    if missing:
+        raise InvalidField("exchange_rates", f"offers are priced in {', '.join(missing)}; keep a rate for each.")
 
 
 def delete_tender(session: Session, tender_id: int) -> None:
@@ -102,6 +126,8 @@ def tender_out(session: Session, tender: Tender) -> schemas.TenderOut:
         title=tender.title,
         currency=tender.currency,
         status=tender.status,
+        bid_opening_date=tender.bid_opening_date,
+        exchange_rates=tender.exchange_rates or {},
         cost_basis_id=revision.cost_basis_id,
         cost_basis_name=revision.cost_basis.name,
         cost_basis_revision=revision.revision,
@@ -113,6 +139,8 @@ def tender_out(session: Session, tender: Tender) -> schemas.TenderOut:
 
 def add_lot(session: Session, tender_id: int, data: schemas.LotCreate) -> Lot:
     tender = get_tender(session, tender_id)
+    _check_load_shapes(session, [data])
+    check_keys(session, data.limit_tables)
     lot = Lot(tender=tender, **data.model_dump())
     session.add(lot)
     commit(session, "lot")
@@ -127,6 +155,8 @@ def patch_lot(session: Session, lot_id: int, patch: schemas.LotPatch) -> Lot:
     lot = get_lot(session, lot_id)
     ensure_open(session, lot)
     check_version(lot, patch.version, "lot", current=lot_out(lot).model_dump(mode="json"))
+    _check_load_shapes(session, [patch])
+    check_keys(session, patch.limit_tables)
     apply_patch(lot, patch, _LOT_REQUIRED)
     commit(session, "lot")
     return lot

@@ -19,6 +19,7 @@ from server.storage.models import (
     Offer,
     Tender,
     User,
+    UserLimitTable,
     utcnow,
 )
 
@@ -31,6 +32,7 @@ AUDITED: dict[type, str] = {
     Offer: "offer",
     User: "user",
     EvaluationRecord: "evaluation_record",
+    UserLimitTable: "limit_table",
 }
 # Never copied into the trail (secrets), or noise that every change carries.
 _HIDDEN = {"password_hash"}

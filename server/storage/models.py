@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime
 from typing import Any
 
-from sqlalchemy import JSON, Boolean, DateTime, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy import JSON, Boolean, Date, DateTime, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
 NAMING_CONVENTION = {
@@ -66,7 +66,30 @@ class CostBasisRevision(Base):
     load_rate_per_kw: Mapped[float] = mapped_column(Float, nullable=False)
     aux_rate_per_kw: Mapped[float] = mapped_column(Float, nullable=False)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    created_by: Mapped[str | None] = mapped_column(String(64))
     cost_basis: Mapped[CostBasis] = relationship(back_populates="revisions")
+
+
+class LoadShape(Versioned, Base):
+    """A year of hourly loading (built from daily curves or uploaded) and its figures."""
+
+    __tablename__ = "load_shapes"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(120), nullable=False, unique=True)
+    kind: Mapped[str] = mapped_column(String(16), nullable=False)  # "daily" or "hourly"
+    unit: Mapped[str] = mapped_column(String(8), nullable=False)  # of the stored values: "pu" or "kva"
+    year: Mapped[int] = mapped_column(Integer, nullable=False)
+    seasons: Mapped[list[dict[str, Any]] | None] = mapped_column(JSON)
+    values: Mapped[list[float]] = mapped_column(JSON, nullable=False)
+    source: Mapped[str] = mapped_column(String(200), nullable=False, default="")
+    filled_hours: Mapped[int] = mapped_column(Integer, nullable=False, default=0)
+    peak: Mapped[float] = mapped_column(Float, nullable=False)
+    load_factor: Mapped[float] = mapped_column(Float, nullable=False)
+    loss_factor: Mapped[float] = mapped_column(Float, nullable=False)
+    rms_pu: Mapped[float] = mapped_column(Float, nullable=False)
+    equivalent_hours: Mapped[float] = mapped_column(Float, nullable=False)
 
 
 class Tender(Versioned, Base):
@@ -78,6 +101,9 @@ class Tender(Versioned, Base):
     title: Mapped[str] = mapped_column(String(200), nullable=False)
     currency: Mapped[str] = mapped_column(String(3), nullable=False)
     status: Mapped[str] = mapped_column(String(16), nullable=False, default="draft")
+    bid_opening_date: Mapped[date | None] = mapped_column(Date)
+    # Tender currency per unit of each other currency, fixed at bid opening.
+    exchange_rates: Mapped[dict[str, float]] = mapped_column(JSON, nullable=False, default=dict)
     cost_basis_revision_id: Mapped[int] = mapped_column(
         ForeignKey("cost_basis_revisions.id", ondelete="RESTRICT"), nullable=False
     )
@@ -105,6 +131,13 @@ class Lot(Versioned, Base):
     max_no_load_loss_w: Mapped[float | None] = mapped_column(Float)
     max_load_loss_w: Mapped[float | None] = mapped_column(Float)
     impedance_pct: Mapped[float | None] = mapped_column(Float)
+    # The lot's own loading; where unset, the cost basis's loading applies.
+    load_shape_id: Mapped[int | None] = mapped_column(ForeignKey("load_shapes.id", ondelete="RESTRICT"), index=True)
+    peak_load_pu: Mapped[float | None] = mapped_column(Float)
+    load_growth_pct: Mapped[float | None] = mapped_column(Float)
+    # Keys of the limit tables (built-in or user-defined) the offers must meet.
+    limit_tables: Mapped[list[str]] = mapped_column(JSON, nullable=False, default=list)
+    load_shape: Mapped[LoadShape | None] = relationship()
     tender: Mapped[Tender] = relationship(back_populates="lots")
     offers: Mapped[list[Offer]] = relationship(
         back_populates="lot", order_by="Offer.id", cascade="all, delete-orphan"
@@ -119,6 +152,8 @@ class Offer(Versioned, Base):
     lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="CASCADE"), nullable=False, index=True)
     bidder: Mapped[str] = mapped_column(String(120), nullable=False)
     unit_price: Mapped[float] = mapped_column(Float, nullable=False)
+    # The currency the price is stated in; None means the tender's currency.
+    currency: Mapped[str | None] = mapped_column(String(3))
     no_load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
     load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
     aux_loss_w: Mapped[float] = mapped_column(Float, nullable=False, default=0.0)
@@ -212,3 +247,48 @@ class EvaluationRecord(Base):
     reopened_by: Mapped[str | None] = mapped_column(String(64))
     reopen_reason: Mapped[str | None] = mapped_column(Text)
     lot: Mapped[Lot] = relationship()
+
+
+class UserLimitTable(Versioned, Base):
+    """A limit table a user defined (a utility's own specification), beside the built-in ones."""
+
+    __tablename__ = "limit_tables"
+    __mapper_args__ = {"version_id_col": Versioned.version}
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    key: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
+    name: Mapped[str] = mapped_column(String(200), nullable=False)
+    source: Mapped[str] = mapped_column(String(300), nullable=False)
+    status: Mapped[str] = mapped_column(String(16), nullable=False, default="user-defined")
+    kind: Mapped[str] = mapped_column(String(16), nullable=False)  # max_losses, min_efficiency, min_pei
+    phases: Mapped[int | None] = mapped_column(Integer)
+    insulation: Mapped[str | None] = mapped_column(String(16))
+    per_unit_load: Mapped[float] = mapped_column(Float, nullable=False, default=0.5)
+    rows: Mapped[list[dict[str, float]]] = mapped_column(JSON, nullable=False)
+
+
+class OfferImport(Base):
+    """An uploaded offer file, checked and waiting to be committed all at once (or dropped)."""
+
+    __tablename__ = "offer_imports"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    tender_id: Mapped[int] = mapped_column(ForeignKey("tenders.id", ondelete="CASCADE"), nullable=False, index=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    created_by: Mapped[str] = mapped_column(String(64), nullable=False)
+    filename: Mapped[str] = mapped_column(String(200), nullable=False)
+    rows: Mapped[list[dict[str, Any]]] = mapped_column(JSON, nullable=False)
+    committed_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+
+
+class LimitTableReview(Base):
+    """A user's confirmation (or correction of status) of a built-in limit table."""
+
+    __tablename__ = "limit_table_reviews"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    key: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
+    status: Mapped[str] = mapped_column(String(16), nullable=False)
+    note: Mapped[str] = mapped_column(Text, nullable=False, default="")
+    reviewed_by: Mapped[str] = mapped_column(String(64), nullable=False)
+    reviewed_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)

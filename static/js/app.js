@@ -26,6 +26,32 @@
     showNotice("The server could not be reached. Check the connection and try again.");
   });
 
+  // A link that opens a row in place (an offer's history) closes it when used again,
+  // instead of asking the server for a second copy.
+  document.addEventListener("htmx:confirm", function (event) {
+    var trigger = event.detail.elt;
+    var id = trigger && trigger.getAttribute && trigger.getAttribute("data-toggles");
+    if (!id) return;
+    var opened = document.getElementById(id);
+    if (opened) {
+      event.preventDefault();
+      opened.remove();
+      trigger.setAttribute("aria-expanded", "false");
+    } else {
+      trigger.setAttribute("aria-expanded", "true");
+    }
+  });
+
+  // Print buttons are hidden until there is a script to make them work.
+  document.addEventListener("DOMContentLoaded", function () {
+    document.querySelectorAll("[data-print]").forEach(function (button) {
+      button.hidden = false;
+      button.addEventListener("click", function () {
+        window.print();
+      });
+    });
+  });
+
   // A new request makes an old notice misleading.
   document.addEventListener("htmx:beforeRequest", function () {
     var area = document.getElementById("notice");

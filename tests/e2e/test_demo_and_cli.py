@@ -39,14 +39,16 @@ def test_demo_seeds_once_and_every_lot_rewards_low_losses(cli_env, capsys):
         tenders = client.get("/api/v1/tenders").json()
         assert len(tenders) == 1 and len(tenders[0]["lots"]) == 3
         assert len(client.get("/api/v1/cost-bases").json()) == 3
-        leaders = set()
+        leaders, excluded = set(), 0
         for lot in tenders[0]["lots"]:
-            rows = client.get(f"/api/v1/lots/{lot['id']}/ranking").json()["rows"]
+            rows = client.get(f"/api/v1/lots/{lot['id']}/ranking", params={"include_non_compliant": True}).json()["rows"]
             assert len(rows) == 5
             cheapest = min(rows, key=lambda r: r["unit_price"])
             assert cheapest["rank"] != 1, "the demo must show that the cheapest price is not the lowest TOC"
             leaders.add(rows[0]["bidder"])
+            excluded += sum(1 for r in rows if not r["compliant"])
         assert len(leaders) == 3
+        assert excluded == 2  # one offer over the utility's cap, one over the EU Tier 1 losses
 
 
 def test_db_upgrade_and_downgrade_commands(cli_env, capsys):

@@ -427,6 +427,7 @@ def test_the_chart_options_follow_the_ranking():
         efficiency_50_pct=99.0, efficiency_75_pct=99.0, efficiency_100_pct=99.0,
     )
     ranking = schemas.RankingOut(
+        loading=schemas.LoadingOut(source="cost basis", note="basis loading"),
         lot_id=1, tender_id=1, currency="EUR", quantity=2, cost_basis_id=1, cost_basis_name="B",
         cost_basis_revision=1, no_load_rate_per_kw=1.0, load_rate_per_kw=1.0, aux_rate_per_kw=1.0,
         rows=[

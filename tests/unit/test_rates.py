@@ -110,15 +110,17 @@ def test_load_rate_with_growth_equals_two_growing_series():
 def test_table_columns_sum_to_rates():
     table = present_worth_table(**BASE)
     rates = rates_present_worth(**BASE)
+    components = {f"{loss}_{part}" for loss in ("no_load", "load", "aux") for part in ("capacity", "energy", "carbon")}
     assert set(table) == {
         "year",
         "discount_factor",
         "energy_price_per_kwh",
+        "carbon_cost_per_kwh",
         "peak_load_pu",
         "no_load_term",
         "load_term",
         "aux_term",
-    }
+    } | components
     assert all(len(column) == BASE["years"] for column in table.values())
     assert table["year"].tolist() == list(range(1, 31))
     assert_allclose(table["discount_factor"][0], 1 / 1.075)
@@ -248,3 +250,46 @@ def test_fixed_charge_rate_validation_names_the_field(field, value):
 def test_negative_discount_rate_above_minus_one_is_accepted():
     rates = rates_present_worth(**{**BASE, "discount_rate": -0.01})
     assert np.isfinite(rates.no_load_rate_per_kw)
+
+
+def test_components_add_up_to_each_term():
+    table = present_worth_table(**BASE, carbon_cost_per_kwh=0.02)
+    for loss in ("no_load", "load", "aux"):
+        parts = table[f"{loss}_capacity"] + table[f"{loss}_energy"] + table[f"{loss}_carbon"]
+        assert_allclose(parts, table[f"{loss}_term"], rtol=1e-15)
+
+
+def test_carbon_cost_acts_as_an_energy_price_adder():
+    # Hand check (unit arithmetic): 80 EUR/t x 0.25 t/MWh = 20 EUR/MWh = 0.02 EUR/kWh. Adding it as
+    # carbon must give the same A, B, C as a flat price path raised by the same 0.02 each year.
+    from domain.rates import carbon_cost_per_kwh
+
+    adder = carbon_cost_per_kwh(80.0, 0.25)
+    assert_allclose(adder, 0.02)
+    flat = {**BASE, "energy_escalation": 0.0}
+    with_carbon = rates_present_worth(**flat, carbon_cost_per_kwh=adder)
+    raised = rates_present_worth(**{**flat, "energy_price_per_kwh": flat["energy_price_per_kwh"] + adder})
+    assert_allclose(with_carbon.no_load_rate_per_kw, raised.no_load_rate_per_kw, rtol=1e-12)
+    assert_allclose(with_carbon.load_rate_per_kw, raised.load_rate_per_kw, rtol=1e-12)
+    assert_allclose(with_carbon.aux_rate_per_kw, raised.aux_rate_per_kw, rtol=1e-12)
+
+
+def test_explicit_price_path_against_a_plain_loop():
+    # Independent plain-Python present-worth loop (REFERENCE.md section 3 conventions).
+    path = [0.08, 0.09, 0.11, 0.10, 0.12]
+    args = {**BASE, "years": 5}
+    rates = rates_present_worth(**args, energy_price_path_per_kwh=path)
+    i, g, sc = args["discount_rate"], args["load_growth"], args["capacity_cost_per_kw_year"]
+    a = b = 0.0
+    for t in range(1, 6):
+        peak = args["peak_load_pu"] * (1 + g) ** (t - 1)
+        a += (sc + path[t - 1] * 8760) / (1 + i) ** t
+        b += (sc * args["responsibility_factor"] + path[t - 1] * 8760 * args["loss_factor"]) * peak**2 / (1 + i) ** t
+    assert_allclose(rates.no_load_rate_per_kw, a, rtol=1e-12)
+    assert_allclose(rates.load_rate_per_kw, b, rtol=1e-12)
+
+
+def test_price_path_must_cover_every_year():
+    with pytest.raises(InvalidInput) as caught:
+        present_worth_table(**{**BASE, "years": 3}, energy_price_path_per_kwh=[0.1, 0.1])
+    assert caught.value.field == "energy_price_path_per_kwh"
