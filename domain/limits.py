@@ -272,7 +272,7 @@ def check_lot_rules(unit: UnitFacts, offer: OfferLossFigures, max_no_load_loss_w
         value = offer.impedance_pct
         passed = value is not None and abs(value - required_impedance_pct) <= band + 1e-12
         findings.append(Finding(
-            f"required impedance {required_impedance_pct:g} % +-{tolerance:g} %", required_impedance_pct, value, "%",
+            f"required impedance {required_impedance_pct:g} % \u00b1{tolerance:g} %", required_impedance_pct, value, "%",
             "IEC 60076-1 Table 1 tolerance (from memory; verify against the standard)", passed,
             f"allowed {required_impedance_pct - band:.3g} to {required_impedance_pct + band:.3g} %",
         ))

@@ -16,7 +16,7 @@ from pydantic import ValidationError
 from server import api, pages
 from server.auth import ANY_ROLE, NotAuthenticated
 from server.errors import Conflict, ImportRefused, InvalidField, ServiceError
-from server.middleware import BodySizeLimit, SecurityHeaders
+from server.middleware import BodySizeLimit, RequestLog, SecurityHeaders
 from server.settings import Settings, get_settings
 from server.storage.database import Database
 from server.version import VERSION
@@ -62,6 +62,17 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         """Liveness: the process answers."""
         return {"status": "ok", "version": VERSION}
 
+    @app.get("/readyz", tags=["operations"], responses={503: {"description": "The database cannot be reached."}})
+    def readyz() -> JSONResponse:
+        """Readiness: the database answers a query."""
+        try:
+            with app.state.db.engine.connect() as conn:
+                conn.exec_driver_sql("SELECT 1")
+        except Exception:  # any failure to reach the database means not ready
+            log.warning("readiness check failed", exc_info=True)
+            return JSONResponse({"status": "database unreachable"}, status_code=503)
+        return JSONResponse({"status": "ready"})
+
     @app.get("/openapi.json", include_in_schema=False, dependencies=[ANY_ROLE])
     def openapi_document() -> JSONResponse:
         return JSONResponse(app.openapi())
@@ -81,6 +92,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.mount("/static", StaticFiles(directory=STATIC_DIR), name="static")
     app.add_middleware(BodySizeLimit, max_bytes=settings.max_body_bytes)
     app.add_middleware(SecurityHeaders)
+    app.add_middleware(RequestLog)
     return app
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import getpass
+import logging
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -53,6 +54,10 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
     settings = get_settings()
     url = settings.database_url
+    if settings.env == "production" and url.startswith("sqlite") and args.workers > 1:
+        raise SystemExit("Several workers need PostgreSQL: SQLite allows one writer at a time. "
+                         "Set LOSSLEDGER_DATABASE_URL to a PostgreSQL database, or run one worker.")
+    settings.check_production()
     if url.startswith("sqlite"):
         _upgrade(url)
     if args.demo:
@@ -60,14 +65,25 @@ def cmd_serve(args: argparse.Namespace) -> int:
     host = args.host or settings.host
     port = args.port or settings.port
     print(f"LossLedger on http://{host}:{port} (database: {url.split('@')[-1]})")
-    uvicorn.run("server.app:create_app", factory=True, host=host, port=port, workers=args.workers)
+    logging.basicConfig(level=logging.INFO, format="%(message)s")  # request logs are JSON lines
+    uvicorn.run("server.app:create_app", factory=True, host=host, port=port, workers=args.workers,
+                access_log=False)
     return 0
 
 
 def cmd_db(args: argparse.Namespace) -> int:
+    from server.storage import backup
     from server.storage.migrate import downgrade
 
     url = get_settings().database_url
+    if args.action == "backup":
+        backup.backup(url, args.file)
+        print(f"Backed up the database to {args.file}.")
+        return 0
+    if args.action == "restore":
+        backup.restore(url, args.file)
+        print(f"Restored the database from {args.file}.")
+        return 0
     if args.action == "upgrade":
         _upgrade(url)
         print("Database is at the latest schema.")
@@ -138,6 +154,10 @@ def build_parser() -> argparse.ArgumentParser:
     db_sub.add_parser("upgrade", help="apply all migrations")
     down = db_sub.add_parser("downgrade", help="revert migrations")
     down.add_argument("revision", help="target revision, e.g. -1 or base")
+    save = db_sub.add_parser("backup", help="write an online backup (SQLite backup API or pg_dump)")
+    save.add_argument("file")
+    load = db_sub.add_parser("restore", help="replace the database's contents with a backup")
+    load.add_argument("file")
     db.set_defaults(func=cmd_db)
 
     people = sub.add_parser("users", help="user accounts")

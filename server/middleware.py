@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+import json
+import logging
+import time
+
 from starlette.datastructures import MutableHeaders
 from starlette.responses import PlainTextResponse
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
@@ -80,3 +84,35 @@ class BodySizeLimit:
 
 class _BodyTooLarge(Exception):
     pass
+
+
+class RequestLog:
+    """One JSON line per request on the ``lossledger.request`` logger: method, path, status, time."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+        self.log = logging.getLogger("lossledger.request")
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        started = time.perf_counter()
+        status = 500
+
+        async def send_and_note(message: Message) -> None:
+            nonlocal status
+            if message["type"] == "http.response.start":
+                status = message["status"]
+            await send(message)
+
+        try:
+            await self.app(scope, receive, send_and_note)
+        finally:
+            if self.log.isEnabledFor(logging.INFO):
+                client = scope.get("client")
+                self.log.info(json.dumps({
+                    "method": scope.get("method"), "path": scope.get("path"), "status": status,
+                    "ms": round((time.perf_counter() - started) * 1000, 2),
+                    "client": client[0] if client else None,
+                }))

@@ -9,68 +9,36 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
+from domain.limits import OfferLossFigures, UnitFacts, check_lot_rules
 from server.pages.basis_form import input_label, method_boxes
 from server.pages.templating import DASH, fmt_plain
+from server.services.compliance import reason
 
-# The lot's stated limits the report checks, as the report names them.
+# The lot's stated limits, as the report names them.
 _LIMITS = (
     ("max_no_load_loss_w", "most no-load loss"),
     ("max_load_loss_w", "most load loss"),
-    ("impedance_pct", "impedance asked"),
+    ("impedance_pct", "impedance asked (IEC 60076-1 tolerance, from memory, verify against the standard)"),
 )
-# IEC 60076-1 Table 1, short-circuit impedance on the principal tap (from memory).
-_IMPEDANCE_TOLERANCE_AT_OR_ABOVE_10_PCT = 0.075
-_IMPEDANCE_TOLERANCE_BELOW_10_PCT = 0.10
-
-
-def impedance_tolerance_band(declared_pct: float) -> tuple[float, float]:
-    """Lowest and highest short-circuit impedance within the routine-test tolerance.
-
-    Parameters
-    ----------
-    declared_pct : the declared (here: the lot's required) impedance [%]
-
-    Returns
-    -------
-    (low_pct, high_pct) [%]
-
-    Notes
-    -----
-    tolerance t = 0.075 when declared_pct >= 10, else t = 0.10 (a fraction of the declared
-    value, not percentage points); band = declared_pct * (1 - t) .. declared_pct * (1 + t).
-
-    References
-    ----------
-    IEC 60076-1, Table 1, two-winding transformer on the principal tap. From memory:
-    verify against the edition of the standard in force.
-    """
-    tolerance = _IMPEDANCE_TOLERANCE_AT_OR_ABOVE_10_PCT if declared_pct >= 10 else _IMPEDANCE_TOLERANCE_BELOW_10_PCT
-    return declared_pct * (1 - tolerance), declared_pct * (1 + tolerance)
 
 
 def compliance_flags(lot: Mapping[str, Any], offer: Mapping[str, Any]) -> list[str]:
-    """What an offer's declared values break among the lot's stated limits, in plain words.
+    """The reasons frozen with the offer when the lot was awarded.
 
-    Checks the guaranteed no-load loss against ``max_no_load_loss_w``, the load loss against
-    ``max_load_loss_w`` [W], and the impedance [%] against the lot's ``impedance_pct`` with
-    the tolerance of ``impedance_tolerance_band``. A limit the lot does not state is not checked.
+    The award freezes each offer's verdict against the lot's caps, its required impedance and
+    the limit tables it names (``server.services.awards.freeze_inputs``). A record written
+    before verdicts were frozen is checked again here against the lot's own caps and impedance,
+    with the same domain rules.
     """
-    flags = []
-    cap = lot.get("max_no_load_loss_w")
-    if cap is not None and offer["no_load_loss_w"] > cap:
-        flags.append(f"No-load loss {fmt_plain(offer['no_load_loss_w'])} W is above the {fmt_plain(cap)} W allowed.")
-    cap = lot.get("max_load_loss_w")
-    if cap is not None and offer["load_loss_w"] > cap:
-        flags.append(f"Load loss {fmt_plain(offer['load_loss_w'])} W is above the {fmt_plain(cap)} W allowed.")
-    asked = lot.get("impedance_pct")
-    if asked is not None:
-        low, high = impedance_tolerance_band(asked)
-        if not low <= offer["impedance_pct"] <= high:
-            flags.append(
-                f"Impedance {fmt_plain(offer['impedance_pct'])} % is outside {fmt_plain(round(low, 3))} to "
-                f"{fmt_plain(round(high, 3))} % (the {fmt_plain(asked)} % asked, with its tolerance)."
-            )
-    return flags
+    if "reasons" in offer:
+        return list(offer["reasons"])
+    unit = UnitFacts(lot.get("rating_kva", 0.0), lot.get("phases", 3), lot.get("insulation", "liquid"),
+                     lot.get("hv_kv", 0.0), lot.get("lv_kv", 0.0))
+    figures = OfferLossFigures(offer["no_load_loss_w"], offer["load_loss_w"], offer.get("aux_loss_w", 0.0),
+                               offer.get("impedance_pct"))
+    findings = check_lot_rules(unit, figures, lot.get("max_no_load_loss_w"), lot.get("max_load_loss_w"),
+                               lot.get("impedance_pct"))
+    return [reason(f) for f in findings if f.passed is False]
 
 
 def _shown(value: Any) -> str:
@@ -99,12 +67,13 @@ def report_view(record: Any, verification: Mapping[str, Any]) -> dict[str, Any]:
     lot = inputs["lot"]
     currency = inputs["tender"]["currency"]
     offers = {offer["id"]: offer for offer in inputs["offers"]}
-    rows = []
-    for row in record.ranking:
-        offer = offers.get(row["offer_id"], {})
-        rows.append(row | {"offer": offer, "flags": compliance_flags(lot, offer) if offer else []})
+    rows = [row | {"offer": offers.get(row["offer_id"], {})} for row in record.ranking]
+    checked_offers = [
+        {"bidder": offer["bidder"], "offer": offer, "flags": compliance_flags(lot, offer)} for offer in inputs["offers"]
+    ]
     awarded = next((row for row in rows if row["offer_id"] == record.awarded_offer_id), rows[0] if rows else None)
     checked = [label for name, label in _LIMITS if lot.get(name) is not None]
+    checked += [f"limit table {key}" for key in lot.get("limit_tables") or []]
     return {
         "record": record,
         "tender": inputs["tender"],
@@ -115,6 +84,7 @@ def report_view(record: Any, verification: Mapping[str, Any]) -> dict[str, Any]:
         "rows": rows,
         "awarded": awarded,
         "limits_checked": checked,
-        "flagged": sum(1 for row in rows if row["flags"]),
+        "checked_offers": checked_offers,
+        "flagged": sum(1 for row in checked_offers if row["flags"]),
         "verification": verification,
     }

@@ -10,11 +10,14 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from domain.limits import is_compliant
 from domain.rates import CapitalisationRates
 from domain.toc import OfferLosses, rank_offers
 from server.errors import Conflict, InvalidField
+from server.services.compliance import all_tables, offer_findings, reason
 from server.services.loading import lot_rates
 from server.services.locks import active_record, ensure_open
+from server.services.ranking import price_in_tender_currency
 from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
 from server.storage import audit
@@ -28,7 +31,7 @@ _OFFER_FIELDS = (
 _LOT_FIELDS = (
     "id", "name", "rating_kva", "phases", "hv_kv", "lv_kv", "frequency_hz", "insulation",
     "quantity", "reference_temp_c", "max_no_load_loss_w", "max_load_loss_w", "impedance_pct",
-    "load_shape_id", "peak_load_pu", "load_growth_pct",
+    "load_shape_id", "peak_load_pu", "load_growth_pct", "limit_tables",
 )
 
 
@@ -39,13 +42,30 @@ def canonical_hash(inputs: dict[str, Any]) -> str:
 
 
 def freeze_inputs(session: Session, lot: Lot) -> dict[str, Any]:
-    """Everything the ranking depends on, as plain data."""
+    """Everything the ranking depends on, as plain data, decided as the live ranking decides it.
+
+    Each offer carries its price in the tender's currency (at the tender's fixed rate) and its
+    compliance verdict with reasons, so the frozen ranking excludes what the live one excludes
+    even if a limit table or an exchange rate changes later.
+    """
     tender = lot.tender
     revision = tender.cost_basis_revision
     rates, loading = lot_rates(lot, revision)
     offers = session.scalars(select(Offer).where(Offer.lot_id == lot.id).order_by(Offer.id)).all()
+    tables = all_tables(session)
+    frozen_offers = []
+    for offer in offers:
+        findings = offer_findings(lot, offer, tables)
+        frozen_offers.append({
+            **{field: getattr(offer, field) for field in _OFFER_FIELDS},
+            "currency": offer.currency or tender.currency,
+            "price_in_tender_currency": price_in_tender_currency(offer, tender),
+            "compliant": is_compliant(findings),
+            "reasons": [reason(f) for f in findings if f.passed is False],
+        })
     return {
-        "tender": {"id": tender.id, "reference": tender.reference, "title": tender.title, "currency": tender.currency},
+        "tender": {"id": tender.id, "reference": tender.reference, "title": tender.title, "currency": tender.currency,
+                   "exchange_rates": dict(tender.exchange_rates or {})},
         "lot": {field: getattr(lot, field) for field in _LOT_FIELDS},
         "cost_basis": {
             "id": revision.cost_basis_id,
@@ -58,18 +78,20 @@ def freeze_inputs(session: Session, lot: Lot) -> dict[str, Any]:
             "load_rate_per_kw": rates.load_rate_per_kw,
             "aux_rate_per_kw": rates.aux_rate_per_kw,
         },
-        "offers": [{field: getattr(o, field) for field in _OFFER_FIELDS} for o in offers],
+        "offers": frozen_offers,
     }
 
 
 def rank_frozen(inputs: dict[str, Any]) -> list[dict[str, Any]]:
-    """Rank frozen inputs with the domain engine alone (no database)."""
+    """Rank the frozen compliant offers with the domain engine alone (no database)."""
     basis = inputs["cost_basis"]
     rates = CapitalisationRates(basis["no_load_rate_per_kw"], basis["load_rate_per_kw"], basis["aux_rate_per_kw"])
     ranked = rank_offers(
         [
-            OfferLosses(o["id"], o["bidder"], o["unit_price"], o["no_load_loss_w"], o["load_loss_w"], o["aux_loss_w"])
+            OfferLosses(o["id"], o["bidder"], o.get("price_in_tender_currency", o["unit_price"]),
+                        o["no_load_loss_w"], o["load_loss_w"], o["aux_loss_w"])
             for o in inputs["offers"]
+            if o.get("compliant", True)
         ],
         rates,
         quantity=inputs["lot"]["quantity"],
@@ -93,7 +115,7 @@ def award_lot(session: Session, lot_id: int, note: str | None = None) -> Evaluat
     inputs = freeze_inputs(session, lot)
     ranking = rank_frozen(inputs)
     if not ranking:
-        raise InvalidField("lot", "has no offers to award.")
+        raise InvalidField("lot", "has no compliant offers to award.")
     record = EvaluationRecord(
         lot=lot,
         awarded_by=audit.get_actor(session).username,

@@ -152,7 +152,8 @@ def finding_out(finding: Finding) -> schemas.FindingOut:
 
 def reason(finding: Finding) -> str:
     """A failed finding in one line: the rule, the value and the limit."""
-    return f"{finding.rule}: {finding.value:g} {finding.unit} against {finding.limit:g} {finding.unit}".replace(" %", "%")
+    space = "" if finding.unit == "%" else " "
+    return f"{finding.rule}: {finding.value:g}{space}{finding.unit} against {finding.limit:g}{space}{finding.unit}"
 
 
 def lot_compliance(session: Session, lot: Lot, offers: list[Offer] | None = None) -> list[schemas.OfferComplianceOut]:

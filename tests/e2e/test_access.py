@@ -17,8 +17,8 @@ from server.settings import Settings
 from server.storage.models import ROLES
 from tests.conftest import add_user_with_token, auth, make_client
 
-# Routes anyone may call: logging in, the token endpoint, health and static files.
-PUBLIC = {("GET", "/login"), ("POST", "/login"), ("POST", "/api/v1/token"), ("GET", "/healthz")}
+# Routes anyone may call: logging in, the token endpoint, health and readiness, static files.
+PUBLIC = {("GET", "/login"), ("POST", "/login"), ("POST", "/api/v1/token"), ("GET", "/healthz"), ("GET", "/readyz")}
 
 
 def _requires(dependant) -> list[Requires]:

@@ -133,3 +133,22 @@ def test_award_of_empty_lot_is_refused(client):
     _, _, lot_id = f.setup_lot(client)
     r = client.post(f"/api/v1/lots/{lot_id}/award", json={})
     assert r.status_code == 422
+
+
+def test_award_follows_the_live_ranking_rules(client):
+    """A non-compliant offer with the lowest TOC is not awarded; converted prices are frozen."""
+    basis_id = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()["id"]
+    body = f.tender(basis_id, lots=[f.lot(max_no_load_loss_w=400)], exchange_rates={"USD": 0.5})
+    lot_id = client.post("/api/v1/tenders", json=body).json()["lots"][0]["id"]
+    client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Over the cap", unit_price=1000, no_load_loss_w=450))
+    client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Dollars", unit_price=22000, currency="USD",
+                                                                no_load_loss_w=390))
+    client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Euros", unit_price=12000, no_load_loss_w=390))
+    live = client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"]
+    assert live[0]["bidder"] == "Dollars"  # 22,000 USD at 0.5 = 11,000 EUR
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    assert record["ranking"][0]["bidder"] == "Dollars"
+    assert [r["bidder"] for r in record["ranking"]] == [r["bidder"] for r in live]
+    frozen = {o["bidder"]: o for o in record["inputs"]["offers"]}
+    assert not frozen["Over the cap"]["compliant"] and frozen["Dollars"]["price_in_tender_currency"] == 11000
+    assert client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()["verified"]
