@@ -30,5 +30,10 @@ test: $(STAMP)
 test-fast: $(STAMP)
 	$(PY) -m pytest tests/unit -q
 
+# Speed and memory targets, measured side by side in one run (never as timed tests).
+bench: $(STAMP)
+	$(PY) -m bench.bench_fleet
+	$(PY) -m bench.bench_monte_carlo
+
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis

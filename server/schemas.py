@@ -256,6 +256,11 @@ class TenderCreate(Strict):
     status: TenderStatus = "draft"
     bid_opening_date: date | None = None
     exchange_rates: ExchangeRates = Field(default_factory=dict)
+    tolerance_standard: Literal["iec", "ieee"] = Field(
+        default="iec", description="Factory-test tolerances: IEC 60076-1 or IEEE C57.12.00.")
+    penalty_multiplier: Annotated[float, Field(ge=0, le=100)] = 1.0
+    penalty_credit_below: bool = False
+    reject_beyond_tolerance: bool = True
     cost_basis_id: int = Field(ge=1)
     cost_basis_revision: Annotated[int, Field(ge=1)] | None = Field(
         default=None, description="Defaults to the basis's latest revision."
@@ -271,6 +276,10 @@ class TenderPatch(Strict):
     status: TenderStatus | None = None
     bid_opening_date: date | None = None
     exchange_rates: ExchangeRates | None = None
+    tolerance_standard: Literal["iec", "ieee"] | None = None
+    penalty_multiplier: Annotated[float, Field(ge=0, le=100)] | None = None
+    penalty_credit_below: bool | None = None
+    reject_beyond_tolerance: bool | None = None
     cost_basis_id: Annotated[int, Field(ge=1)] | None = None
     cost_basis_revision: Annotated[int, Field(ge=1)] | None = None
 
@@ -284,6 +293,10 @@ class TenderOut(BaseModel):
     status: str
     bid_opening_date: date | None = None
     exchange_rates: dict[str, float] = Field(default_factory=dict)
+    tolerance_standard: str = "iec"
+    penalty_multiplier: float = 1.0
+    penalty_credit_below: bool = False
+    reject_beyond_tolerance: bool = True
     cost_basis_id: int
     cost_basis_name: str
     cost_basis_revision: int
@@ -748,3 +761,155 @@ class EfficiencyCurvesOut(BaseModel):
     reference_points: list[dict[str, Any]] = Field(
         default_factory=list, description="Regulatory points: a minimum efficiency at a loading, or a minimum PEI."
     )
+
+
+# --- factory tests -----------------------------------------------------------------------------
+
+Side = Literal["hv", "lv"]
+Volts = Annotated[float, Field(gt=0, le=2_000_000)]
+Amps = Annotated[float, Field(gt=0, le=1_000_000)]
+Watts = Annotated[float, Field(ge=0, le=1e8)]
+
+
+class OpenCircuitIn(Strict):
+    side: Side = "lv"
+    voltage_v: Volts
+    current_a: Amps
+    power_w: Watts
+    frequency_hz: Annotated[float, Field(gt=0, le=1000)] | None = None
+
+
+class ShortCircuitIn(Strict):
+    side: Side = "hv"
+    voltage_v: Volts
+    current_a: Amps
+    power_w: Watts
+    winding_temp_c: Annotated[float, Field(ge=-40, le=200)]
+    i2r_w: Watts | None = Field(default=None, description="The resistive part I^2R at the test current and temperature.")
+    resistance_hv_ohm: Annotated[float, Field(gt=0, le=1e6)] | None = Field(
+        default=None, description="DC resistance per phase (star equivalent) of the HV winding at the test temperature.")
+    resistance_lv_ohm: Annotated[float, Field(gt=0, le=1e6)] | None = Field(
+        default=None, description="DC resistance per phase (star equivalent) of the LV winding at the test temperature.")
+
+
+class GuaranteeIn(Strict):
+    no_load_loss_w: Annotated[float, Field(gt=0, le=1e8)]
+    load_loss_w: Annotated[float, Field(gt=0, le=1e8)]
+    impedance_pct: Annotated[float, Field(gt=0, le=100)] | None = None
+    no_load_current_pct: Annotated[float, Field(gt=0, le=100)] | None = None
+
+
+class OperatingPointIn(Strict):
+    load_pu: Annotated[float, Field(ge=0, le=3)]
+    power_factor: Annotated[float, Field(ge=0, le=1)] = 1.0
+    lagging: bool = True
+
+
+class TestAnalysisIn(Strict):
+    __test__ = False
+    rating_kva: Annotated[float, Field(gt=0, le=MAX_RATING_KVA)]
+    phases: Literal[1, 3] = 3
+    hv_v: Volts
+    lv_v: Volts
+    frequency_hz: Annotated[float, Field(gt=0, le=1000)] = 50.0
+    conductor: Literal["copper", "aluminium"] = "copper"
+    reference_temp_c: Annotated[float, Field(ge=0, le=200)] = 75.0
+    standard: Literal["iec", "ieee"] = "iec"
+    open_circuit: OpenCircuitIn
+    short_circuit: ShortCircuitIn
+    guarantee: GuaranteeIn | None = None
+    operating_points: Annotated[list[OperatingPointIn], Field(max_length=200)] = Field(default_factory=list)
+    circuit_side: Side = "hv"
+
+
+class TestFindingOut(BaseModel):
+    __test__ = False
+    rule: str
+    limit: float | None
+    value: float | None
+    passed: bool
+    source: str
+    unit: str = ""
+    note: str = ""
+
+
+class OperatingPointOut(BaseModel):
+    load_pu: float
+    power_factor: float
+    lagging: bool
+    efficiency_pct: float
+    regulation_pct: float
+    input_power_w: float
+    output_power_w: float
+    losses_w: float
+
+
+class TestAnalysisOut(BaseModel):
+    __test__ = False
+    r0_ohm: float
+    x0_ohm: float | None = Field(description="null when the magnetising branch is nil (infinite reactance).")
+    req_ohm: float
+    xeq_ohm: float
+    r1_ohm: float
+    x1_ohm: float
+    r2_ohm: float
+    x2_ohm: float
+    circuit_side: str
+    impedance_pct: float
+    impedance_pct_at_test: float
+    no_load_loss_w: float
+    load_loss_at_rated_current_w: float
+    load_loss_at_reference_w: float
+    no_load_current_pct: float
+    notes: list[str]
+    within_tolerance: bool | None
+    findings: list[TestFindingOut]
+    operating_points: list[OperatingPointOut]
+
+
+class CertificateIn(Strict):
+    serial_number: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=64)]
+    test_date: date
+    laboratory: Text
+    conductor: Literal["copper", "aluminium"] = "copper"
+    reference_temp_c: Annotated[float, Field(ge=0, le=200)] | None = None
+    open_circuit: OpenCircuitIn
+    short_circuit: ShortCircuitIn
+
+
+class CertificateOut(BaseModel):
+    id: int
+    lot_id: int
+    offer_id: int
+    serial_number: str
+    test_date: date
+    laboratory: str
+    entered_by: str
+    entered_at: datetime
+    no_load_loss_w: float
+    load_loss_at_reference_w: float
+    impedance_pct: float
+    no_load_current_pct: float
+    within_tolerance: bool
+    penalty: float
+    rejected: bool
+    readings: dict[str, Any]
+
+
+class CertificateSummaryOut(BaseModel):
+    lot_id: int
+    awarded_offer_id: int | None
+    bidder: str | None
+    units_ordered: int
+    units_tested: int
+    guaranteed_no_load_loss_w: float | None
+    guaranteed_load_loss_w: float | None
+    no_load_deviation_mean_pct: float | None
+    no_load_deviation_worst_pct: float | None
+    load_deviation_mean_pct: float | None
+    load_deviation_worst_pct: float | None
+    total_penalty: float
+    rejected_units: int
+    outside_tolerance_units: int
+    tolerance_standard: str
+    currency: str

@@ -12,7 +12,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from server.auth import Requires
 from server.errors import ServiceError
-from server.pages import audit, awards, cost_bases, lots, people, session, tenders
+from server.pages import audit, awards, cost_bases, intake, limit_tables, lots, people, session, tenders
 from server.pages.templating import is_htmx, render
 
 router = APIRouter(include_in_schema=False)
@@ -23,6 +23,8 @@ router.include_router(cost_bases.router)
 router.include_router(audit.router)
 router.include_router(awards.router)
 router.include_router(people.router)
+router.include_router(intake.router)
+router.include_router(limit_tables.router)
 
 _TITLES = {
     403: "Not allowed", 404: "Not found", 405: "Not found", 409: "Cannot change this now", 422: "Cannot accept this",

@@ -5,6 +5,7 @@ Functions here are pure: no I/O, no templates; ``static/js/charts.js`` draws wha
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from server import schemas
@@ -66,6 +67,124 @@ def toc_breakdown_chart(ranking: schemas.RankingOut) -> dict[str, Any]:
             "data": labels,
             "axisTick": {"show": False},
             "axisLabel": {"width": LABEL_WIDTH_PX, "overflow": "truncate", "fontSize": 13},
+        },
+        "series": series,
+    }
+
+
+# Okabe and Ito's palette first (told apart with the common colour-vision deficiencies), then calm greys.
+CURVE_COLOURS = (
+    "#0072b2", "#e69f00", "#009e73", "#cc79a7", "#56b4e9", "#d55e00",
+    "#52606d", "#8a6bb1", "#2a7f8e", "#b08b00",
+)
+LIMIT_COLOUR = "#a3262a"
+# Below a fifth of the rating every curve falls steeply to zero; the axis starts above that.
+_SCALE_FROM_PU = 0.2
+
+
+def _efficiency_axis(curves: schemas.EfficiencyCurvesOut) -> tuple[float, float]:
+    """The efficiency axis's ends [%]: the curves above a fifth of the rating and every limit,
+    with a tenth of the span to spare, in steps of 0.1 % and never above 100 %."""
+    values = [
+        eta for curve in curves.curves
+        for k, eta in zip(curves.loading_pu, curve.efficiency_pct, strict=True) if k >= _SCALE_FROM_PU
+    ]
+    values += [p["efficiency_pct"] for p in curves.reference_points if p.get("efficiency_pct") is not None]
+    if not values:
+        return 95.0, 100.0
+    low, high = min(values), max(values)
+    spare = max(0.1 * (high - low), 0.05)
+    return math.floor((low - spare) * 10) / 10, min(100.0, math.ceil((high + spare) * 10) / 10)
+
+
+def efficiency_curves_chart(curves: schemas.EfficiencyCurvesOut) -> dict[str, Any]:
+    """One line per offer: efficiency against loading from 0 to 150 % of the rating, with the
+    loading of maximum efficiency marked on each line, and the limits the lot names: a minimum
+    efficiency at its loading as a point, a minimum peak efficiency index as a dashed level.
+
+    Each offer's series has the id ``offer-<offer id>``; the limits' ids start with ``limit-``.
+    Loadings are in percent of the rating, efficiencies in percent, rounded to 0.001 %.
+    """
+    x_pct = [round(100.0 * k, 2) for k in curves.loading_pu]
+    series: list[dict[str, Any]] = []
+    for index, curve in enumerate(curves.curves):
+        colour = CURVE_COLOURS[index % len(CURVE_COLOURS)]
+        line: dict[str, Any] = {
+            "id": f"offer-{curve.offer_id}",
+            "name": curve.bidder,
+            "type": "line",
+            "showSymbol": False,
+            "smooth": False,
+            "itemStyle": {"color": colour},
+            "lineStyle": {"width": 2},
+            "emphasis": {"focus": "series"},
+            "data": [[x, round(eta, 3)] for x, eta in zip(x_pct, curve.efficiency_pct, strict=True)],
+        }
+        if curve.max_efficiency_loading_pu is not None and curve.max_efficiency_pct is not None:
+            at_pct = round(100.0 * curve.max_efficiency_loading_pu, 1)
+            line["markPoint"] = {
+                "symbol": "circle",
+                "symbolSize": 9,
+                "itemStyle": {"color": colour, "borderColor": "#ffffff", "borderWidth": 1.5},
+                "label": {"show": False},
+                "data": [{
+                    "name": f"Maximum efficiency {curve.max_efficiency_pct:.3f} % at {at_pct:g} % load",
+                    "coord": [at_pct, round(curve.max_efficiency_pct, 3)],
+                }],
+            }
+        series.append(line)
+    for number, point in enumerate(curves.reference_points):
+        value = round(point["efficiency_pct"], 3)
+        if point.get("kind") == "min_efficiency":
+            at_pct = round(100.0 * point["loading_pu"], 1)
+            series.append({
+                "id": f"limit-{number}",
+                "name": f"Minimum efficiency, {point['table']}",
+                "type": "scatter",
+                "symbol": "triangle",
+                "symbolSize": 13,
+                "itemStyle": {"color": LIMIT_COLOUR},
+                "label": {"show": True, "position": "bottom", "color": LIMIT_COLOUR,
+                          "formatter": f"minimum {value:g} % at {at_pct:g} %"},
+                "data": [[at_pct, value]],
+            })
+        else:
+            series.append({
+                "id": f"limit-{number}",
+                "name": f"Minimum peak efficiency index, {point['table']}",
+                "type": "line",
+                "showSymbol": False,
+                "itemStyle": {"color": LIMIT_COLOUR},
+                "lineStyle": {"type": "dashed", "width": 1.5},
+                "endLabel": {"show": True, "color": LIMIT_COLOUR, "formatter": f"PEI {value:g} %"},
+                "data": [[x_pct[0], value], [x_pct[-1], value]],
+            })
+    low, high = _efficiency_axis(curves)
+    return {
+        "animation": False,
+        "textStyle": {"color": TEXT_COLOUR, "fontFamily": FONT, "fontSize": 13},
+        "tooltip": {"trigger": "item"},
+        "legend": {"type": "scroll", "top": 0, "left": 0, "right": 0, "itemWidth": 18, "itemHeight": 10,
+                   "textStyle": {"fontSize": 13}},
+        "grid": {"left": 64, "right": 72, "top": 48, "bottom": 52},
+        "xAxis": {
+            "type": "value",
+            "min": 0,
+            "max": x_pct[-1] if x_pct else 150,
+            "interval": 25,
+            "name": "Loading (% of the rating)",
+            "nameLocation": "middle",
+            "nameGap": 30,
+            "splitLine": {"lineStyle": {"color": GRID_COLOUR}},
+        },
+        "yAxis": {
+            "type": "value",
+            "min": low,
+            "max": high,
+            "name": "Efficiency (%)",
+            "nameLocation": "middle",
+            "nameGap": 48,
+            "splitLine": {"lineStyle": {"color": GRID_COLOUR}},
         },
         "series": series,
     }

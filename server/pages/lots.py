@@ -19,16 +19,18 @@ router = APIRouter()
 
 
 @router.get("/lots/{lot_id:int}", dependencies=[ANY_ROLE])
-def lot_detail(request: Request, lot_id: int, session: SessionDep):
-    return render(request, "lots/detail.html", views.lot_detail(session, lot_id))
+def lot_detail(request: Request, lot_id: int, session: SessionDep, include_non_compliant: bool = False):
+    return render(request, "lots/detail.html", views.lot_detail(session, lot_id, include_non_compliant))
 
 
 @router.get("/lots/{lot_id:int}/ranking", dependencies=[ANY_ROLE])
-def lot_ranking(request: Request, lot_id: int, session: SessionDep):
-    """The ranking section alone, fetched again by htmx whenever an offer changes."""
+def lot_ranking(request: Request, lot_id: int, session: SessionDep, include_non_compliant: bool = False):
+    """The ranking section alone, fetched again by htmx whenever an offer changes (and with the
+    non-compliant offers listed after the ranked ones when asked)."""
     if not is_htmx(request):
-        return RedirectResponse(f"/lots/{lot_id}#ranking", status_code=303)
-    return render(request, "lots/_ranking.html", views.ranking_view(session, lot_id))
+        shown = "?include_non_compliant=true" if include_non_compliant else ""
+        return RedirectResponse(f"/lots/{lot_id}{shown}#ranking", status_code=303)
+    return render(request, "lots/_ranking.html", views.ranking_view(session, lot_id, include_non_compliant))
 
 
 @router.post("/lots/{lot_id:int}/offers", dependencies=[BUYER])

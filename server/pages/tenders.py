@@ -13,17 +13,18 @@ from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
 from server.errors import Conflict, InvalidField
 from server.pages import views
-from server.pages.forms import FormDep, FormValues, basis_choice, create_data, field_errors
+from server.pages.forms import FormDep, FormListsDep, FormValues, basis_choice, create_data, field_errors
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
-from server.services import tenders as service
+from server.services import pages_intake, tenders as service
 
 router = APIRouter()
 
 
-def _new_tender(form: FormValues) -> dict[str, Any]:
+def _new_tender(form: FormValues, tables: list[str]) -> dict[str, Any]:
     """The tender's header boxes and its first lot's boxes (posted without a prefix)."""
     header = {name: form.get(name, "") for name in ("reference", "title", "currency")}
-    return header | basis_choice(form.get("cost_basis", "")) | {"lots": [create_data(form, schemas.LotCreate)]}
+    lot = create_data(form, schemas.LotCreate) | {"limit_tables": tables}
+    return header | basis_choice(form.get("cost_basis", "")) | {"lots": [lot]}
 
 
 def _tender_patch(form: FormValues) -> dict[str, Any]:
@@ -46,9 +47,10 @@ def tender_list(request: Request, session: SessionDep):
 
 
 @router.post("/tenders", dependencies=[BUYER])
-def create_tender(request: Request, session: SessionDep, form: FormDep):
+def create_tender(request: Request, session: SessionDep, form: FormDep, lists: FormListsDep):
+    tables = lists.get("limit_tables", [])
     try:
-        tender = service.create_tender(session, schemas.TenderCreate.model_validate(_new_tender(form)))
+        tender = service.create_tender(session, schemas.TenderCreate.model_validate(_new_tender(form, tables)))
     except ValidationError as exc:
         errors = field_errors(exc)
     except InvalidField as exc:
@@ -56,14 +58,17 @@ def create_tender(request: Request, session: SessionDep, form: FormDep):
         errors = {exc.field: exc.detail}
     else:
         return see_other(request, f"/tenders/{tender.id}")
-    context = views.tender_list(session) | {"form": form, "errors": errors}
+    context = views.tender_list(session) | {"form": form | {"limit_tables": tables}, "errors": errors}
     return page_or_partial(request, "tenders/list.html", "tenders/_new_form.html", context, status_code=422)
 
 
 @router.get("/tenders/{tender_id:int}", dependencies=[ANY_ROLE])
-def tender_detail(request: Request, tender_id: int, session: SessionDep, saved: bool = False):
+def tender_detail(request: Request, tender_id: int, session: SessionDep, saved: bool = False,
+                  imported: int | None = None):
     context = views.tender_detail(session, tender_id)
     context |= {"form": views.tender_form(context["tender"]), "saved": saved, "lot_form": views.LOT_DEFAULTS}
+    if imported is not None:
+        context["imported"] = pages_intake.committed_import(session, tender_id, imported)
     return render(request, "tenders/detail.html", context)
 
 
@@ -96,9 +101,11 @@ def edit_tender(request: Request, tender_id: int, session: SessionDep, form: For
 
 
 @router.post("/tenders/{tender_id:int}/lots", dependencies=[BUYER])
-def add_lot(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+def add_lot(request: Request, tender_id: int, session: SessionDep, form: FormDep, lists: FormListsDep):
+    tables = lists.get("limit_tables", [])
     try:
-        service.add_lot(session, tender_id, schemas.LotCreate.model_validate(create_data(form, schemas.LotCreate)))
+        data = create_data(form, schemas.LotCreate) | {"limit_tables": tables}
+        service.add_lot(session, tender_id, schemas.LotCreate.model_validate(data))
     except ValidationError as exc:
         errors = field_errors(exc)
     else:
@@ -107,5 +114,6 @@ def add_lot(request: Request, tender_id: int, session: SessionDep, form: FormDep
         context = views.tender_detail(session, tender_id) | {"lot_form": views.LOT_DEFAULTS}
         return render(request, "tenders/_lots.html", context)
     context = views.tender_detail(session, tender_id)
-    context |= {"form": views.tender_form(context["tender"]), "lot_form": form, "lot_errors": errors}
+    context |= {"form": views.tender_form(context["tender"]), "lot_form": form | {"limit_tables": tables},
+                "lot_errors": errors}
     return page_or_partial(request, "tenders/detail.html", "tenders/_lots.html", context, status_code=422)

@@ -14,6 +14,7 @@ from sqlalchemy.orm import Session
 from server import schemas
 from server.errors import Conflict, InvalidField
 from server.pages.basis_form import chosen_method, input_label, method_boxes
+from server.pages import intake_views
 from server.pages.charts import toc_breakdown_chart
 from server.pages.forms import field_errors, full_inputs
 from server.pages.templating import input_value
@@ -21,7 +22,7 @@ from server.services import awards, cost_bases, locks, offers, pages_support, ra
 
 # The offer boxes in the order the forms and the offers table show them.
 OFFER_FIELDS = [
-    "bidder", "unit_price", "no_load_loss_w", "load_loss_w", "aux_loss_w",
+    "bidder", "unit_price", "currency", "no_load_loss_w", "load_loss_w", "aux_loss_w",
     "impedance_pct", "no_load_current_pct", "delivery_weeks", "notes",
 ]
 LOT_DEFAULTS = {"phases": "3", "frequency_hz": "50", "insulation": "liquid", "quantity": "1"}
@@ -36,13 +37,15 @@ def tender_list(session: Session) -> dict[str, Any]:
     return {
         "tenders": [tenders.tender_out(session, t) for t in tenders.list_tenders(session)],
         "bases": basis_choices(session),
-    }
+    } | intake_views.lot_form_extras(session)
 
 
 def tender_detail(session: Session, tender_id: int) -> dict[str, Any]:
     tender = tenders.tender_out(session, tenders.get_tender(session, tender_id))
     awarded = pages_support.awarded_lot_ids(session, [lot.id for lot in tender.lots])
-    return {"tender": tender, "bases": basis_choices(session), "awarded_lots": awarded}
+    return {"tender": tender, "bases": basis_choices(session), "awarded_lots": awarded} | (
+        intake_views.lot_form_extras(session) | intake_views.tender_extras(session, tender)
+    )
 
 
 def price_note(result: schemas.RankingOut) -> dict[str, Any] | None:
@@ -62,10 +65,13 @@ def price_note(result: schemas.RankingOut) -> dict[str, Any] | None:
     }
 
 
-def ranking_view(session: Session, lot_id: int) -> dict[str, Any]:
-    result = ranking.lot_ranking(session, lot_id)
-    return {
-        "ranking": result,
+def ranking_view(session: Session, lot_id: int, include_non_compliant: bool = False) -> dict[str, Any]:
+    """The compliant offers ranked (what an award follows); the table lists the others after
+    them when asked, and says which offers are left out and why."""
+    shown = intake_views.excluded_view(ranking.lot_ranking(session, lot_id, include_non_compliant=True),
+                                       include_non_compliant)
+    result = shown["ranking"]
+    return shown | {
         "chart": toc_breakdown_chart(result) if result.rows else None,
         "note": price_note(result),
     }
@@ -90,7 +96,7 @@ def awarded_row(record: Any) -> dict[str, Any]:
     return next((row for row in record.ranking if row["offer_id"] == record.awarded_offer_id), {})
 
 
-def lot_detail(session: Session, lot_id: int) -> dict[str, Any]:
+def lot_detail(session: Session, lot_id: int, include_non_compliant: bool = False) -> dict[str, Any]:
     lot = tenders.get_lot(session, lot_id)
     count = tenders.offer_counts(session, [lot.id]).get(lot.id, 0)
     return {
@@ -100,8 +106,11 @@ def lot_detail(session: Session, lot_id: int) -> dict[str, Any]:
         "editing": {},
         "offer_boxes": OFFER_FIELDS,
         "offers": [offers.offer_out(o) for o in offers.list_offers(session, lot_id)],
-        **ranking_view(session, lot_id),
+        "currencies": intake_views.currency_choices(lot.tender.currency, lot.tender.exchange_rates or {}),
+        **ranking_view(session, lot_id, include_non_compliant),
         **award_state(session, lot_id),
+        **intake_views.compliance_view(session, lot_id),
+        **intake_views.curves_view(session, lot_id),
     }
 
 
@@ -114,6 +123,7 @@ def offer_row(session: Session, offer_id: int) -> dict[str, Any]:
     return {
         "offer": offers.offer_out(offer),
         "currency": offer.lot.tender.currency,
+        "currencies": intake_views.currency_choices(offer.lot.tender.currency, offer.lot.tender.exchange_rates or {}),
         "locked": locks.active_record(session, offer.lot_id) is not None,
     }
 

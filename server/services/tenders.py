@@ -13,7 +13,10 @@ from server.services.cost_bases import get_revision
 from server.services.locks import ensure_no_records, ensure_open, ensure_tender_open
 from server.storage.models import LoadShape, Lot, Offer, Tender
 
-_TENDER_REQUIRED = {"reference", "title", "currency", "status", "exchange_rates"}
+_TENDER_REQUIRED = {
+    "reference", "title", "currency", "status", "exchange_rates", "tolerance_standard", "penalty_multiplier",
+    "penalty_credit_below", "reject_beyond_tolerance",
+}
 _LOT_REQUIRED = {
     "name", "rating_kva", "phases", "hv_kv", "lv_kv", "frequency_hz",
     "insulation", "quantity", "reference_temp_c", "limit_tables",
@@ -47,6 +50,10 @@ def create_tender(session: Session, data: schemas.TenderCreate) -> Tender:
         status=data.status,
         bid_opening_date=data.bid_opening_date,
         exchange_rates=data.exchange_rates,
+        tolerance_standard=data.tolerance_standard,
+        penalty_multiplier=data.penalty_multiplier,
+        penalty_credit_below=data.penalty_credit_below,
+        reject_beyond_tolerance=data.reject_beyond_tolerance,
         cost_basis_revision=revision,
         lots=[Lot(**lot.model_dump()) for lot in data.lots],
     )
@@ -128,6 +135,10 @@ def tender_out(session: Session, tender: Tender) -> schemas.TenderOut:
         status=tender.status,
         bid_opening_date=tender.bid_opening_date,
         exchange_rates=tender.exchange_rates or {},
+        tolerance_standard=tender.tolerance_standard,
+        penalty_multiplier=tender.penalty_multiplier,
+        penalty_credit_below=tender.penalty_credit_below,
+        reject_beyond_tolerance=tender.reject_beyond_tolerance,
         cost_basis_id=revision.cost_basis_id,
         cost_basis_name=revision.cost_basis.name,
         cost_basis_revision=revision.revision,

@@ -18,6 +18,7 @@ from server.storage.models import (
     Lot,
     Offer,
     Tender,
+    TestCertificate,
     User,
     UserLimitTable,
     utcnow,
@@ -33,6 +34,7 @@ AUDITED: dict[type, str] = {
     User: "user",
     EvaluationRecord: "evaluation_record",
     UserLimitTable: "limit_table",
+    TestCertificate: "test_certificate",
 }
 # Never copied into the trail (secrets), or noise that every change carries.
 _HIDDEN = {"password_hash"}

@@ -104,6 +104,11 @@ class Tender(Versioned, Base):
     bid_opening_date: Mapped[date | None] = mapped_column(Date)
     # Tender currency per unit of each other currency, fixed at bid opening.
     exchange_rates: Mapped[dict[str, float]] = mapped_column(JSON, nullable=False, default=dict)
+    # Contract terms for factory tests: which tolerances apply and how excess losses are charged.
+    tolerance_standard: Mapped[str] = mapped_column(String(8), nullable=False, default="iec")
+    penalty_multiplier: Mapped[float] = mapped_column(Float, nullable=False, default=1.0)
+    penalty_credit_below: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    reject_beyond_tolerance: Mapped[bool] = mapped_column(Boolean, nullable=False, default=True)
     cost_basis_revision_id: Mapped[int] = mapped_column(
         ForeignKey("cost_basis_revisions.id", ondelete="RESTRICT"), nullable=False
     )
@@ -292,3 +297,28 @@ class LimitTableReview(Base):
     note: Mapped[str] = mapped_column(Text, nullable=False, default="")
     reviewed_by: Mapped[str] = mapped_column(String(64), nullable=False)
     reviewed_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+
+
+class TestCertificate(Base):
+    """A delivered unit's routine-test certificate: the readings, and the figures derived from them."""
+
+    __test__ = False  # not a pytest test class
+    __tablename__ = "test_certificates"
+    __table_args__ = (UniqueConstraint("lot_id", "serial_number"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="RESTRICT"), nullable=False, index=True)
+    offer_id: Mapped[int] = mapped_column(Integer, nullable=False)
+    serial_number: Mapped[str] = mapped_column(String(64), nullable=False)
+    test_date: Mapped[date] = mapped_column(Date, nullable=False)
+    laboratory: Mapped[str] = mapped_column(String(200), nullable=False)
+    entered_by: Mapped[str] = mapped_column(String(64), nullable=False)
+    entered_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    readings: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    no_load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
+    load_loss_at_reference_w: Mapped[float] = mapped_column(Float, nullable=False)
+    impedance_pct: Mapped[float] = mapped_column(Float, nullable=False)
+    no_load_current_pct: Mapped[float] = mapped_column(Float, nullable=False)
+    within_tolerance: Mapped[bool] = mapped_column(Boolean, nullable=False)
+    penalty: Mapped[float] = mapped_column(Float, nullable=False)
+    rejected: Mapped[bool] = mapped_column(Boolean, nullable=False)

@@ -1,0 +1,54 @@
+"""JSON API: analysis of routine-test readings and the certificates of delivered units."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, File, UploadFile
+
+from server import schemas
+from server.auth import ANY_ROLE, BUYER
+from server.deps import SessionDep
+from server.services import test_certificates as service
+
+router = APIRouter(tags=["factory tests"])
+REFUSED = {422: {"model": schemas.ImportRefusedOut, "description": "The file has problems; nothing was stored."}}
+
+
+@router.post("/test-analysis", response_model=schemas.TestAnalysisOut, dependencies=[ANY_ROLE])
+def test_analysis(data: schemas.TestAnalysisIn):
+    """Equivalent circuit, figures at rated current and reference temperature, verdict and
+    operating points from open- and short-circuit test readings; nothing is stored.
+
+    The product checks figures; it does not certify a unit. Tests at these voltages are
+    lethal and are done only by qualified staff under the standard and local rules.
+    """
+    return service.analyse(data)
+
+
+@router.post("/lots/{lot_id}/test-certificates", status_code=201, response_model=schemas.CertificateOut,
+             dependencies=[BUYER])
+def add_certificate(lot_id: int, data: schemas.CertificateIn, session: SessionDep):
+    """A delivered unit's certificate, checked against the awarded offer's guarantees."""
+    return service.certificate_out(service.add_certificate(session, lot_id, data))
+
+
+@router.get("/lots/{lot_id}/test-certificates", response_model=list[schemas.CertificateOut], dependencies=[ANY_ROLE])
+def list_certificates(lot_id: int, session: SessionDep):
+    return [service.certificate_out(c) for c in service.list_certificates(session, lot_id)]
+
+
+@router.post("/lots/{lot_id}/test-certificates/import", status_code=201, response_model=list[schemas.CertificateOut],
+             dependencies=[BUYER], responses=REFUSED)
+def import_certificates(lot_id: int, session: SessionDep,
+                        file: Annotated[UploadFile, File(description="CSV or XLSX, one certificate per row")]):
+    """Many certificates from one file; a file with any bad row stores nothing."""
+    return [service.certificate_out(c) for c in
+            service.import_certificates(session, lot_id, file.filename or "", file.file.read())]
+
+
+@router.get("/lots/{lot_id}/test-certificates/summary", response_model=schemas.CertificateSummaryOut,
+            dependencies=[ANY_ROLE])
+def certificate_summary(lot_id: int, session: SessionDep):
+    """Units tested, mean and worst deviation per loss, total penalty and rejected units."""
+    return service.lot_summary(session, lot_id)

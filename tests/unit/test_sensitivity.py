@@ -1,0 +1,579 @@
+"""Sensitivity of the ranking: break-even rates, rate map, tornado, Monte Carlo (REFERENCE.md s.2-3)."""
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+
+from domain import CapitalisationRates, InvalidInput, OfferLosses, rank_offers, rates_direct, total_owning_cost
+from domain.rates import rates_present_worth
+from domain.sensitivity import (
+    OfferArrays,
+    SimulationCancelled,
+    break_even,
+    break_even_sentences,
+    leader_index,
+    lower_envelope_lines,
+    monte_carlo,
+    present_worth_rates_fn,
+    present_worth_rates_vectorised,
+    split_leader,
+    tornado,
+    winner_grid,
+)
+
+# Present-worth inputs also used by test_rates.py (invented, typical of a distribution utility).
+BASE = dict(
+    energy_price_per_kwh=0.09,
+    energy_escalation=0.025,
+    capacity_cost_per_kw_year=85.0,
+    discount_rate=0.075,
+    years=30,
+    peak_load_pu=0.7,
+    load_growth=0.015,
+    loss_factor=0.28,
+    responsibility_factor=0.85,
+    cooling_hours_per_year=1500.0,
+)
+
+# Published worked example (see test_toc.py for the source): 50 MVA unit, rates
+# 2450 / 1304 / 756 $/kW; bid A $424,500, 59 / 224 / 2.0 kW; bid B $436,000, 53 / 218 / 2.5 kW.
+ARTICLE_RATES = rates_direct(2450.0, 1304.0, 756.0)
+BID_A = OfferLosses(1, "Manufacturer A", 424_500.0, 59_000.0, 224_000.0, 2_000.0)
+BID_B = OfferLosses(2, "Manufacturer B", 436_000.0, 53_000.0, 218_000.0, 2_500.0)
+
+
+def _offers(*rows):
+    """OfferArrays from (id, price, P0 W, Pk W, Paux W) rows, in the order given."""
+    ids, prices, p0, pk, paux = zip(*rows, strict=True)
+    return OfferArrays(offer_ids=np.array(ids), prices=prices, p0_w=p0, pk_w=pk, paux_w=paux)
+
+
+def _losses(offer_id, price, p0, pk, paux=0.0, bidder=None):
+    return OfferLosses(offer_id, bidder or f"Bidder {offer_id}", price, p0, pk, paux)
+
+
+# --------------------------------------------------------------------------- OfferArrays
+
+
+def test_offer_arrays_toc_matches_total_owning_cost_bit_for_bit():
+    # Published worked example: A $862,658, B $852,012 (article totals).
+    offers = OfferArrays.from_offers([BID_A, BID_B])
+    toc = offers.toc(2450.0, 1304.0, 756.0)
+    expected = total_owning_cost(offers.prices, offers.p0_w, offers.pk_w, offers.paux_w, ARTICLE_RATES)
+    assert np.array_equal(toc, expected.toc_per_unit)
+    assert_allclose(sorted(toc.tolist()), [852_012.0, 862_658.0], rtol=1e-12)
+
+
+def test_from_offers_puts_offers_in_the_tie_break_order_of_rank_offers():
+    # Same price and losses: rank_offers orders by casefolded bidder, then offer_id.
+    same = dict(unit_price=10_000.0, no_load_loss_w=500.0, load_loss_w=5000.0, aux_loss_w=0.0)
+    raw = [
+        OfferLosses(offer_id=7, bidder="beta", **same),
+        OfferLosses(offer_id=3, bidder="Alpha", **same),
+        OfferLosses(offer_id=9, bidder="alpha", **same),
+        OfferLosses(offer_id=2, bidder="alpha", **same),
+    ]
+    offers = OfferArrays.from_offers(raw)
+    ranked = rank_offers(raw, ARTICLE_RATES, 1, 500.0)
+    assert offers.offer_ids.tolist() == [r.offer_id for r in ranked] == [2, 3, 9, 7]
+    assert offers.offer_ids[leader_index(offers, ARTICLE_RATES)] == 2
+
+
+def test_offer_arrays_are_read_only_copies_and_reject_bad_losses():
+    prices = np.array([1.0, 2.0])
+    offers = OfferArrays(offer_ids=[1, 2], prices=prices, p0_w=[1, 1], pk_w=[1, 1], paux_w=[0, 0])
+    prices[0] = 99.0
+    assert offers.prices[0] == 1.0
+    with pytest.raises(ValueError):
+        offers.prices[0] = 5.0
+    with pytest.raises(InvalidInput) as caught:
+        OfferArrays(offer_ids=[1, 2], prices=[1, 2], p0_w=[1, -1], pk_w=[1, 1], paux_w=[0, 0])
+    assert caught.value.field == "p0_w" and "offer 2" in caught.value.message
+    with pytest.raises(InvalidInput) as caught:
+        OfferArrays(offer_ids=[1, 2], prices=[1, 2], p0_w=[1, 1], pk_w=[1, math.nan], paux_w=[0, 0])
+    assert caught.value.field == "pk_w"
+    with pytest.raises(InvalidInput):
+        OfferArrays(offer_ids=[1, 2], prices=[1, 2, 3], p0_w=[1, 1], pk_w=[1, 1], paux_w=[0, 0])
+
+
+# --------------------------------------------------------------------------- break-even
+
+
+def test_break_even_on_the_published_two_bid_example():
+    # Hand calculation, leader B against rival A (d = A - B): d_price = -11,500,
+    # dP0 = +6 kW, dPk = +6 kW, dPaux = -0.5 kW; margin 862,658 - 852,012 = 10,646.
+    # B* = -(-11,500 + 2450*6 - 756*0.5) / 6 = -470.33 < 0: no load rate ties them.
+    # A* = -(-11,500 + 1304*6 - 756*0.5) / 6 = 4054 / 6 = 675.67; B stays ahead above it.
+    leader, rivals = split_leader(OfferArrays.from_offers([BID_A, BID_B]), ARTICLE_RATES)
+    (result,) = break_even(leader, rivals, ARTICLE_RATES)
+    assert (result.leader_id, result.rival_id) == (2, 1)
+    assert_allclose(result.margin_now, 10_646.0, rtol=1e-12)
+    assert (result.price_gap, result.no_load_loss_gap_w, result.load_loss_gap_w, result.aux_loss_gap_w) == (
+        -11_500.0,
+        6_000.0,
+        6_000.0,
+        -500.0,
+    )
+    assert result.load_rate_tie_per_kw is None and result.load_rate_side is None
+    assert_allclose(result.no_load_rate_tie_per_kw, 4054.0 / 6.0, rtol=1e-12)
+    assert result.no_load_rate_side == "above"
+    assert break_even_sentences([result], "USD") == [
+        (
+            "No value of the load rate makes these two tie.",
+            "The order holds while the no-load rate stays above 676 USD/kW (now 2,450).",
+        )
+    ]
+
+
+def test_break_even_below_side_and_sentences():
+    # Hand calculation: leader 100,000 + 5*1 + 2*10 (x1000) = 125,000; rival 110,000 + 5 + 16 = 131,000.
+    # dPk = -2 kW, so B* = 10,000 / 2 = 5,000 and the leader holds while B stays below it;
+    # dP0 = 0, so no no-load rate ties them.
+    rates = rates_direct(5000.0, 2000.0, 0.0)
+    leader = _offers((10, 100_000.0, 1000.0, 10_000.0, 0.0))
+    rivals = _offers((11, 110_000.0, 1000.0, 8_000.0, 0.0))
+    (result,) = break_even(leader, rivals, rates)
+    assert result.margin_now == 6_000.0
+    assert result.load_rate_tie_per_kw == 5_000.0 and result.load_rate_side == "below"
+    assert result.no_load_rate_tie_per_kw is None
+    assert break_even_sentences([result], "EUR") == [
+        (
+            "The order holds while the load rate stays below 5,000 EUR/kW (now 2,000).",
+            "No value of the no-load rate makes these two tie.",
+        )
+    ]
+    # Seen from the rival, which is behind now, the same tie is where the order would reverse.
+    (reverse,) = break_even(rivals, leader, rates)
+    assert reverse.load_rate_tie_per_kw == 5_000.0 and reverse.load_rate_side == "above"
+    assert break_even_sentences([reverse], "EUR")[0][0] == (
+        "The order reverses if the load rate rises above 5,000 EUR/kW (now 2,000)."
+    )
+
+
+def test_break_even_needs_exactly_one_leader():
+    offers = _offers((1, 1.0, 1.0, 1.0, 0.0), (2, 2.0, 1.0, 1.0, 0.0))
+    with pytest.raises(InvalidInput) as caught:
+        break_even(offers, offers, ARTICLE_RATES)
+    assert caught.value.field == "leader"
+
+
+# Whole currency units and whole watts, as tenders state them: a loss gap of 1e-14 W
+# would put the tie at 1e21 per kW, where float TOCs can no longer tell the offers apart.
+price = st.integers(50_000, 500_000).map(float)
+p0_w = st.integers(100, 5_000).map(float)
+pk_w = st.integers(1_000, 50_000).map(float)
+paux_w = st.integers(0, 2_000).map(float)
+rate = st.floats(0.0, 10_000.0)
+
+
+@st.composite
+def two_offers(draw):
+    return [
+        OfferLosses(offer_id, f"Bidder {offer_id}", draw(price), draw(p0_w), draw(pk_w), draw(paux_w))
+        for offer_id in (1, 2)
+    ]
+
+
+def _first_at(offers, a, b, c):
+    return rank_offers(offers, CapitalisationRates(a, b, c), 1, 1000.0)[0].offer_id
+
+
+@given(offers=two_offers(), a=rate, b=rate, c=rate)
+def test_break_even_rates_flip_the_order_just_either_side(offers, a, b, c):
+    # Re-ranking with rank_offers just beyond each tie: the side reported must be the
+    # side where the leader is first (hand algebra: the margin is linear in each rate).
+    rates = CapitalisationRates(a, b, c)
+    leader, rivals = split_leader(OfferArrays.from_offers(offers), rates)
+    (result,) = break_even(leader, rivals, rates)
+    lead, rival = result.leader_id, result.rival_id
+    for tie, side, at in (
+        (result.load_rate_tie_per_kw, result.load_rate_side, lambda x: _first_at(offers, a, x, c)),
+        (result.no_load_rate_tie_per_kw, result.no_load_rate_side, lambda x: _first_at(offers, x, b, c)),
+    ):
+        if tie is None:
+            continue
+        assert tie >= 0 and side in ("below", "above")
+        step = 1e-4 * (1.0 + tie)
+        expect_above, expect_below = (lead, rival) if side == "above" else (rival, lead)
+        assert at(tie + step) == expect_above
+        if tie - step >= 0:
+            assert at(tie - step) == expect_below
+
+
+# --------------------------------------------------------------------------- rate map
+
+
+bidder_names = st.sampled_from(["Alpha", "alpha", "Beta", "beta", ""])
+
+
+@st.composite
+def tender_offers(draw):
+    """2..6 offers from small value sets, so that exact TOC ties happen (as in test_toc.py)."""
+    count = draw(st.integers(1, 6))
+    ids = draw(st.lists(st.integers(1, 1000), min_size=count, max_size=count, unique=True))
+    return [
+        OfferLosses(
+            offer_id=offer_id,
+            bidder=draw(bidder_names),
+            unit_price=draw(st.sampled_from([10_000.0, 12_000.0, 15_000.0])),
+            no_load_loss_w=draw(st.sampled_from([400.0, 600.0, 800.0])),
+            load_loss_w=draw(st.sampled_from([4000.0, 5000.0, 6000.0])),
+            aux_loss_w=draw(st.sampled_from([0.0, 100.0])),
+        )
+        for offer_id in ids
+    ]
+
+
+grid_axis = st.lists(st.sampled_from([0.0, 500.0, 1000.0, 1500.0, 2000.0, 5000.0, 7500.0]), min_size=1, max_size=7)
+
+
+@settings(max_examples=40)
+@given(
+    raw=tender_offers(),
+    a_values=grid_axis,
+    b_values=grid_axis,
+    c_rate=st.sampled_from([0.0, 1000.0]),
+    basis=st.tuples(st.floats(0.0, 8000.0), st.floats(0.0, 8000.0)),
+    data=st.data(),
+)
+def test_winner_grid_matches_a_direct_ranking_cell_by_cell(raw, a_values, b_values, c_rate, basis, data):
+    # Independent reference: rank_offers at each sampled cell (ties included: the value
+    # sets make them common). Chunking down to one cell at a time must not matter.
+    offers = OfferArrays.from_offers(raw)
+    grid = winner_grid(offers, a_values, b_values, c_rate)
+    assert grid.shape == (len(b_values), len(a_values))
+    assert np.array_equal(grid, winner_grid(offers, a_values, b_values, c_rate, max_chunk_elements=1))
+    for _ in range(5):
+        i = data.draw(st.integers(0, len(b_values) - 1))
+        j = data.draw(st.integers(0, len(a_values) - 1))
+        rates = CapitalisationRates(a_values[j], b_values[i], c_rate)
+        assert offers.offer_ids[grid[i, j]] == rank_offers(raw, rates, 1, 630.0)[0].offer_id
+    # The winner at the current basis is the deterministic leader.
+    a_now, b_now = basis
+    at_basis = winner_grid(offers, [0.0, a_now], [b_now], c_rate)[0, 1]
+    assert offers.offer_ids[at_basis] == rank_offers(raw, CapitalisationRates(a_now, b_now, c_rate), 1, 630.0)[0].offer_id
+
+
+def test_tie_lines_separate_the_winners_and_lie_on_equal_toc():
+    # Hand-built: cheap and lossy, dear and efficient, and one in between, over A, B in 0..8000.
+    offers = _offers(
+        (1, 100_000.0, 2_000.0, 20_000.0, 0.0),
+        (2, 140_000.0, 1_000.0, 12_000.0, 0.0),
+        (3, 120_000.0, 1_500.0, 14_000.0, 0.0),
+    )
+    a_values = np.linspace(0.0, 8000.0, 81)
+    b_values = np.linspace(0.0, 8000.0, 81)
+    grid = winner_grid(offers, a_values, b_values, 0.0)
+    assert set(np.unique(grid).tolist()) == {0, 1, 2}
+    segments = lower_envelope_lines(offers, a_values, b_values, 0.0, grid)
+    assert segments
+    for s in segments:
+        for a, b in ((s.no_load_rate_start_per_kw, s.load_rate_start_per_kw), (s.no_load_rate_end_per_kw, s.load_rate_end_per_kw)):
+            assert -1e-9 <= a <= 8000.0 + 1e-9 and -1e-9 <= b <= 8000.0 + 1e-9
+        mid_a = (s.no_load_rate_start_per_kw + s.no_load_rate_end_per_kw) / 2
+        mid_b = (s.load_rate_start_per_kw + s.load_rate_end_per_kw) / 2
+        toc = offers.toc(mid_a, mid_b, 0.0)
+        assert_allclose(toc[s.first_index], toc[s.second_index], rtol=1e-12)
+        assert toc[s.first_index] <= toc.min() * (1 + 1e-12)
+
+
+# --------------------------------------------------------------------------- present-worth rates
+
+
+def test_vectorised_present_worth_rates_equal_the_scalar_function_per_draw():
+    # Reference: domain.rates.rates_present_worth, a separate year-by-year table.
+    rng = np.random.default_rng(11)
+    n = 200
+    inputs = dict(
+        energy_price_per_kwh=rng.uniform(0.0, 0.3, n),
+        energy_escalation=rng.uniform(-0.05, 0.1, n),
+        capacity_cost_per_kw_year=rng.uniform(0.0, 200.0, n),
+        discount_rate=rng.uniform(-0.02, 0.15, n),
+        years=rng.integers(1, 101, n),
+        peak_load_pu=rng.uniform(0.0, 1.5, n),
+        load_growth=rng.uniform(-0.03, 0.05, n),
+        loss_factor=rng.uniform(0.0, 1.0, n),
+        responsibility_factor=rng.uniform(0.0, 1.0, n),
+        cooling_hours_per_year=rng.uniform(0.0, 8000.0, n),
+        hours_per_year=rng.uniform(8000.0, 8784.0, n),
+        carbon_cost_per_kwh=rng.uniform(0.0, 0.05, n),
+    )
+    a, b, c = present_worth_rates_vectorised(inputs)
+    for k in range(n):
+        one = {name: values[k].item() for name, values in inputs.items()}
+        scalar = rates_present_worth(**one)
+        assert_allclose(
+            [a[k], b[k], c[k]],
+            [scalar.no_load_rate_per_kw, scalar.load_rate_per_kw, scalar.aux_rate_per_kw],
+            rtol=1e-12,
+        )
+
+
+def test_vectorised_present_worth_rates_scalar_inputs_and_checks():
+    # Same scalar function as reference; plain floats come back for scalar inputs.
+    expected = rates_present_worth(**BASE)
+    a, b, c = present_worth_rates_vectorised(BASE)
+    assert isinstance(a, float)
+    assert_allclose([a, b, c], [expected.no_load_rate_per_kw, expected.load_rate_per_kw, expected.aux_rate_per_kw], rtol=1e-12)
+    assert present_worth_rates_fn(BASE) == (
+        expected.no_load_rate_per_kw,
+        expected.load_rate_per_kw,
+        expected.aux_rate_per_kw,
+    )
+    for bad, field in (
+        ({"years": [30, 30.5]}, "years"),
+        ({"discount_rate": [0.05, math.nan]}, "discount_rate"),
+        ({"discount_rate": -1.0}, "discount_rate"),
+        ({"cooling_hours_per_year": 9000.0}, "cooling_hours_per_year"),
+        ({"typo_rate": 1.0}, "typo_rate"),
+    ):
+        with pytest.raises(InvalidInput) as caught:
+            present_worth_rates_vectorised({**BASE, **bad})
+        assert caught.value.field == field
+    with pytest.raises(InvalidInput) as caught:
+        present_worth_rates_fn({k: v for k, v in BASE.items() if k != "loss_factor"})
+    assert caught.value.field == "loss_factor"
+
+
+# --------------------------------------------------------------------------- tornado
+
+
+def _direct_rates(inputs):
+    return inputs["no_load_rate"], inputs["load_rate"], 0.0
+
+
+def test_tornado_where_only_the_load_rate_matters():
+    # Hand calculation. Equal no-load losses, so only B moves the margin.
+    # Leader 100,000 + 5,000 + 10 kW * B; rival 110,000 + 5,000 + 8 kW * B.
+    # B = 2000: margin 131,000 - 125,000 = 6,000.  B = 1000: 123,000 - 115,000 = 8,000.
+    # B = 7000: 171,000 - 175,000 = -4,000 (the rival leads).  Swing 12,000.
+    offers = _offers((10, 100_000.0, 1000.0, 10_000.0, 0.0), (11, 110_000.0, 1000.0, 8_000.0, 0.0))
+    base = {"no_load_rate": 5000.0, "load_rate": 2000.0, "unused": 1.0}
+    ranges = {"unused": (0.0, 10.0), "no_load_rate": (2500.0, 7500.0), "load_rate": (1000.0, 7000.0)}
+    rows = tornado(base, ranges, _direct_rates, offers)
+    assert [r.input_name for r in rows] == ["load_rate", "unused", "no_load_rate"]
+    top = rows[0]
+    assert (top.margin_base, top.margin_low, top.margin_high, top.swing) == (6_000.0, 8_000.0, -4_000.0, 12_000.0)
+    assert (top.leader_id_base, top.leader_id_low, top.leader_id_high) == (10, 10, 11)
+    assert (top.leader_changed_low, top.leader_changed_high) == (False, True)
+    for row in rows[1:]:
+        assert row.swing == 0.0 and row.margin_low == row.margin_high == 6_000.0
+        assert not row.leader_changed_low and not row.leader_changed_high
+
+
+def test_tornado_with_present_worth_rates_keeps_years_whole():
+    # Common practice, no source: with equal P0 and Paux only B separates the offers, so
+    # inputs that enter A and C alone (cooling hours) do not move the margin.
+    seen = []
+
+    def rates_fn(inputs):
+        seen.append(inputs["years"])
+        return present_worth_rates_fn(inputs)
+
+    offers = _offers((1, 100_000.0, 1000.0, 12_000.0, 300.0), (2, 104_000.0, 1000.0, 10_000.0, 300.0))
+    ranges = {"years": (20, 40), "cooling_hours_per_year": (0.0, 4000.0), "loss_factor": (0.15, 0.5)}
+    rows = {r.input_name: r for r in tornado(BASE, ranges, rates_fn, offers)}
+    assert all(isinstance(y, int) for y in seen) and {20, 30, 40} <= set(seen)
+    assert_allclose(rows["cooling_hours_per_year"].swing, 0.0, atol=1e-6)
+    # B grows with the loss factor and with the years; 2 kW less load loss gains 2 * dB.
+    b_low = rates_present_worth(**{**BASE, "loss_factor": 0.15}).load_rate_per_kw
+    b_high = rates_present_worth(**{**BASE, "loss_factor": 0.5}).load_rate_per_kw
+    assert_allclose(rows["loss_factor"].swing, 2.0 * (b_high - b_low), rtol=1e-9)
+    with pytest.raises(InvalidInput) as caught:
+        tornado(BASE, {"years": (20.5, 40)}, rates_fn, offers)
+    assert caught.value.field == "years"
+    with pytest.raises(InvalidInput):
+        tornado(BASE, {"not_an_input": (0, 1)}, rates_fn, offers)
+
+
+# --------------------------------------------------------------------------- Monte Carlo
+
+PW_DISTRIBUTIONS = {
+    "energy_price_per_kwh": {"dist": "triangular", "low": 0.06, "mode": 0.09, "high": 0.14},
+    "energy_escalation": {"dist": "uniform", "low": 0.0, "high": 0.04},
+    "discount_rate": {"dist": "normal", "mean": 0.075, "sd": 0.015, "low": 0.04, "high": 0.11},
+    "years": {"dist": "uniform", "low": 25, "high": 35},
+    "loss_factor": {"dist": "uniform", "low": 0.2, "high": 0.35},
+    "peak_load_pu": {"dist": "triangular", "low": 0.5, "mode": 0.7, "high": 1.0},
+}
+
+FIVE_OFFERS = [
+    _losses(1, 100_000.0, 1_100.0, 11_000.0, 200.0),
+    _losses(2, 108_000.0, 800.0, 10_500.0, 200.0),
+    _losses(3, 112_000.0, 900.0, 8_500.0, 150.0),
+    _losses(4, 96_000.0, 1_400.0, 12_500.0, 250.0),
+    _losses(5, 130_000.0, 700.0, 8_000.0, 100.0),
+]
+
+
+def test_monte_carlo_with_every_input_fixed_is_the_deterministic_ranking():
+    # Reference: rank_offers and total_owning_cost at rates_present_worth(BASE).
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    fixed = {name: {"dist": "fixed"} for name in BASE}
+    result = monte_carlo(offers, BASE, fixed, draws=501, seed=3)
+    rates = rates_present_worth(**BASE)
+    leader = rank_offers(FIVE_OFFERS, rates, 1, 1000.0)[0].offer_id
+    toc = total_owning_cost(offers.prices, offers.p0_w, offers.pk_w, offers.paux_w, rates).toc_per_unit
+    assert result.base_leader_id == leader
+    for outcome, plain in zip(result.offers, toc, strict=True):
+        assert outcome.win_probability == (1.0 if outcome.offer_id == leader else 0.0)
+        assert outcome.toc_p5 == outcome.toc_p50 == outcome.toc_p95
+        assert_allclose([outcome.toc_p50, outcome.toc_mean], [plain, plain], rtol=1e-12)
+        assert_allclose(outcome.expected_regret, plain - toc.min(), rtol=1e-9, atol=1e-9)
+        if outcome.offer_id == leader:
+            assert outcome.expected_regret == 0.0
+
+
+def _recording_rates():
+    """Vectorised rates A = a, B = b, C = c that keep every input array it is given."""
+    seen = []
+
+    def rates_fn(inputs):
+        seen.append({name: np.array(values) for name, values in inputs.items()})
+        return inputs["a"], inputs["b"], inputs["c"]
+
+    return rates_fn, seen
+
+
+def test_monte_carlo_matches_a_direct_computation_on_the_same_draws():
+    # Reference: the whole TOC matrix built directly and numpy's percentile, argmin and mean.
+    rng = np.random.default_rng(5)
+    n_offers = 37
+    offers = OfferArrays(
+        offer_ids=np.arange(100, 100 + n_offers),
+        prices=rng.uniform(90_000.0, 130_000.0, n_offers),
+        p0_w=rng.uniform(600.0, 1_500.0, n_offers),
+        pk_w=rng.uniform(7_000.0, 13_000.0, n_offers),
+        paux_w=rng.uniform(0.0, 300.0, n_offers),
+    )
+    base = {"a": 8000.0, "b": 2500.0, "c": 1500.0}
+    distributions = {
+        "a": {"dist": "triangular", "low": 5000.0, "mode": 8000.0, "high": 12000.0},
+        "b": {"dist": "normal", "mean": 2500.0, "sd": 800.0, "low": 500.0, "high": 5000.0},
+        "c": {"dist": "uniform", "low": 1000.0, "high": 2000.0},
+    }
+    rates_fn, seen = _recording_rates()
+    draws = 997  # odd, so the percentile positions fall between samples
+    result = monte_carlo(
+        offers, base, distributions, draws, seed=8, rates_fn=rates_fn, chunk_size=50, percentile_block_bytes=8 * draws * 4
+    )
+    drawn = {name: np.concatenate([part[name] for part in seen[1:]]) for name in base}  # seen[0]: the base
+    assert drawn["a"].size == draws
+    toc = offers.toc(drawn["a"][:, None], drawn["b"][:, None], drawn["c"][:, None])[:, 0, :]
+    winners = toc.argmin(axis=1)
+    assert_allclose([o.win_probability for o in result.offers], np.bincount(winners, minlength=n_offers) / draws, rtol=0, atol=0)
+    assert_allclose([o.toc_p5 for o in result.offers], np.percentile(toc, 5, axis=0), rtol=1e-12)
+    assert_allclose([o.toc_p50 for o in result.offers], np.percentile(toc, 50, axis=0), rtol=1e-12)
+    assert_allclose([o.toc_p95 for o in result.offers], np.percentile(toc, 95, axis=0), rtol=1e-12)
+    assert_allclose([o.toc_mean for o in result.offers], toc.mean(axis=0), rtol=1e-12)
+    regret = (toc - toc.min(axis=1, keepdims=True)).mean(axis=0)
+    assert_allclose([o.expected_regret for o in result.offers], regret, rtol=1e-9, atol=1e-6)
+    # Chunk sizes change nothing but the work pattern.
+    again = monte_carlo(offers, base, distributions, draws, seed=8, rates_fn=rates_fn)
+    assert [o.win_probability for o in again.offers] == [o.win_probability for o in result.offers]
+    assert_allclose([o.toc_p50 for o in again.offers], [o.toc_p50 for o in result.offers], rtol=1e-13)
+
+
+def test_monte_carlo_is_reproducible_by_seed_and_its_shares_add_up():
+    # Common practice: a seeded generator gives the same draws; shares of a partition sum to 1.
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    first = monte_carlo(offers, BASE, PW_DISTRIBUTIONS, draws=3000, seed=42)
+    assert first == monte_carlo(offers, BASE, PW_DISTRIBUTIONS, draws=3000, seed=42)
+    other = monte_carlo(offers, BASE, PW_DISTRIBUTIONS, draws=3000, seed=43)
+    assert other != first
+    assert [o.toc_p50 for o in other.offers] != [o.toc_p50 for o in first.offers]
+    shares = [o.win_probability for o in first.offers]
+    assert_allclose(sum(shares), 1.0, rtol=1e-12)
+    assert sum(0 < s < 1 for s in shares) >= 2  # the inputs really move the ranking
+    for o in first.offers:
+        assert o.expected_regret >= 0.0
+        assert o.toc_p5 <= o.toc_p50 <= o.toc_p95
+        if o.win_probability == 0.0:
+            assert o.expected_regret > 0.0
+
+
+def test_an_offer_that_always_wins_has_zero_regret():
+    # Hand reasoning: cheaper and with every loss lower, it wins whatever the rates.
+    dominant = _losses(9, 90_000.0, 600.0, 7_000.0, 50.0)
+    offers = OfferArrays.from_offers([*FIVE_OFFERS, dominant])
+    result = monte_carlo(offers, BASE, PW_DISTRIBUTIONS, draws=2000, seed=1)
+    by_id = {o.offer_id: o for o in result.offers}
+    assert by_id[9].win_probability == 1.0 and by_id[9].expected_regret == 0.0
+    assert all(o.expected_regret > 0 for o in result.offers if o.offer_id != 9)
+
+
+def test_sampled_inputs_stay_inside_their_distribution_bounds():
+    # Definitions of the uniform, triangular and truncated normal: support [low, high];
+    # the normal truncated symmetrically keeps its mean (4 standard errors allowed).
+    rates_fn, seen = _recording_rates()
+    base = {"a": 5000.0, "b": 2000.0, "c": 0.0, "years": 30}
+    distributions = {
+        "a": {"dist": "uniform", "low": 4000.0, "high": 6000.0},
+        "b": {"dist": "triangular", "low": 1000.0, "mode": 1200.0, "high": 3000.0},
+        "c": {"dist": "normal", "mean": 500.0, "sd": 300.0, "low": 200.0, "high": 800.0},
+        "years": {"dist": "uniform", "low": 20, "high": 40},
+    }
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    monte_carlo(offers, base, distributions, draws=20_000, seed=9, rates_fn=rates_fn)
+    drawn = {name: np.concatenate([part[name] for part in seen[1:]]) for name in base}
+    assert 4000.0 <= drawn["a"].min() and drawn["a"].max() <= 6000.0
+    assert 1000.0 <= drawn["b"].min() and drawn["b"].max() <= 3000.0
+    assert 200.0 <= drawn["c"].min() and drawn["c"].max() <= 800.0
+    assert abs(drawn["c"].mean() - 500.0) < 4 * drawn["c"].std() / math.sqrt(drawn["c"].size)
+    # Triangular mean (low + mode + high) / 3 = 1733.3.
+    assert abs(drawn["b"].mean() - 5200.0 / 3) < 4 * drawn["b"].std() / math.sqrt(drawn["b"].size)
+    years = drawn["years"]
+    assert np.array_equal(years, np.rint(years)) and set(np.unique(years).tolist()) == set(range(20, 41))
+
+
+def test_monte_carlo_progress_and_cancel():
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    fractions = []
+    monte_carlo(offers, BASE, PW_DISTRIBUTIONS, 1000, 0, chunk_size=100, progress=fractions.append)
+    assert fractions == sorted(fractions) and fractions[-1] == 1.0 and len(fractions) > 3
+    calls = []
+
+    def stop_on_third_check():
+        calls.append(1)
+        return len(calls) >= 3
+
+    with pytest.raises(SimulationCancelled):
+        monte_carlo(offers, BASE, PW_DISTRIBUTIONS, 1000, 0, chunk_size=100, should_stop=stop_on_third_check)
+    assert len(calls) == 3
+
+
+@pytest.mark.parametrize(
+    ("distributions", "field"),
+    [
+        ({"loss_factor": {"dist": "lognormal", "low": 0.1, "high": 0.3}}, "distributions[loss_factor]"),
+        ({"loss_factor": {"dist": "uniform", "low": 0.3, "high": 0.1}}, "distributions[loss_factor]"),
+        ({"loss_factor": {"dist": "normal", "mean": 0.2, "low": 0.1, "high": 0.3}}, "distributions[loss_factor]"),
+        ({"loss_factor": {"dist": "normal", "mean": 0.2, "sd": 0.01, "low": 0.5, "high": 0.6}}, "distributions[loss_factor]"),
+        ({"years": {"dist": "uniform", "low": 20.5, "high": 30}}, "distributions[years].low"),
+        ({"los_factor": {"dist": "fixed"}}, "distributions[los_factor]"),
+        ({"loss_factor": {"dist": "uniform", "low": 0.5, "high": 1.5}}, "loss_factor"),
+    ],
+)
+def test_monte_carlo_rejects_bad_distributions(distributions, field):
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    with pytest.raises(InvalidInput) as caught:
+        monte_carlo(offers, BASE, distributions, 100, 0)
+    assert caught.value.field == field
+
+
+@pytest.mark.parametrize("draws", [1, 2, 3, 20, 101])
+def test_monte_carlo_percentiles_for_few_draws_match_numpy(draws):
+    # Reference: numpy.percentile (default "linear", Hyndman and Fan definition 7).
+    rates_fn, seen = _recording_rates()
+    base = {"a": 6000.0, "b": 2000.0, "c": 500.0}
+    distributions = {"b": {"dist": "uniform", "low": 500.0, "high": 5000.0}}
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    result = monte_carlo(offers, base, distributions, draws, seed=4, rates_fn=rates_fn)
+    drawn = {name: np.concatenate([part[name] for part in seen[1:]]) for name in base}
+    toc = offers.toc(drawn["a"][:, None], drawn["b"][:, None], drawn["c"][:, None])[:, 0, :]
+    got = np.array([[o.toc_p5, o.toc_p50, o.toc_p95] for o in result.offers])
+    assert_allclose(got, np.percentile(toc, [5, 50, 95], axis=0).T, rtol=1e-12)
