@@ -33,6 +33,7 @@ test-fast: $(STAMP)
 # Speed and memory targets, measured side by side in one run (never as timed tests).
 bench: $(STAMP)
 	$(PY) -m bench.bench_fleet
+	$(PY) -m bench.bench_fleet_import
 	$(PY) -m bench.bench_monte_carlo
 
 clean:

@@ -9,9 +9,11 @@ Targets (from the issue), measured side by side in one run:
   then argmin per draw. ``monte_carlo`` is timed whole: sampling the inputs,
   the present-worth rates of every draw, TOC, winners, win probabilities,
   exact percentiles, mean TOC and expected regret;
-- at least 100 times faster than a plain Python loop doing the same work
-  (timed on a subset of the draws and scaled linearly; sorting grows a little
-  faster than linearly, so the scaled figure flatters the loop, if anything);
+- at least 100 times faster than a plain Python loop doing the same work.
+  The loop is timed on all the draws (about 5 s a run) and, as the issue
+  suggests, on a subset scaled linearly. Both are printed: the subset
+  flatters the loop, because 1,000 lists of 200 floats stay in cache while
+  10 million boxed floats do not, and sorting grows faster than linearly;
 - memory bounded for 100,000 draws (peak measured with tracemalloc, which
   sees numpy's allocations), against 800 MB for the full float64 TOC matrix.
 
@@ -154,7 +156,8 @@ def main() -> None:
     parser.add_argument("--offers", type=int, default=1_000)
     parser.add_argument("--draws", type=int, default=10_000)
     parser.add_argument("--repeats", type=int, default=9)
-    parser.add_argument("--python-draws", type=int, default=200)
+    parser.add_argument("--python-draws", type=int, default=200, help="subset scaled linearly")
+    parser.add_argument("--python-full", type=int, default=2, help="repeats of the loop on all draws (0: none)")
     parser.add_argument("--memory-draws", type=int, default=100_000)
     args = parser.parse_args()
 
@@ -178,21 +181,31 @@ def main() -> None:
         mc_times.append(timed(lambda: run_monte_carlo(columns, args.draws)))
     floor_s, mc_s = min(floor_times), min(mc_times)
 
-    python_s = min(timed(lambda: plain_python(columns, args.python_draws)) for _ in range(2))
+    python_s = min(timed(lambda: plain_python(columns, args.python_draws)) for _ in range(3))
     python_scaled_s = python_s * args.draws / args.python_draws
+    python_full_s = min(
+        (timed(lambda: plain_python(columns, args.draws)) for _ in range(args.python_full)), default=math.nan
+    )
 
     evaluations = args.offers * args.draws
     winners = int(np.count_nonzero(mc_share))
     print(f"Monte Carlo, {args.offers:,} offers x {args.draws:,} draws = {evaluations:,} TOC evaluations "
           f"({winners} offers win at least one draw); {os.cpu_count()} CPUs; best of {args.repeats}")
-    print(f"  floor (R @ L + price, argmin):     {floor_s * 1e3:8.1f} ms   (median {np.median(floor_times) * 1e3:.1f})")
-    print(f"  monte_carlo (everything):          {mc_s * 1e3:8.1f} ms   (median {np.median(mc_times) * 1e3:.1f})")
+    floor_median, mc_median = np.median(floor_times) * 1e3, np.median(mc_times) * 1e3
+    print(f"  floor (R @ L + price, argmin):     {floor_s * 1e3:8.1f} ms   (median {floor_median:.1f})")
+    print(f"  monte_carlo (everything):          {mc_s * 1e3:8.1f} ms   (median {mc_median:.1f})")
+    print(f"  plain Python, all {args.draws:,} draws:     {python_full_s:8.2f} s    (best of {args.python_full})")
     print(f"  plain Python, {args.python_draws} draws:           {python_s * 1e3:8.1f} ms "
-          f"-> {python_scaled_s:.2f} s scaled to {args.draws:,} draws")
+          f"-> {python_scaled_s:.2f} s scaled linearly to {args.draws:,} draws")
     ratio = mc_s / floor_s
-    speed_up = python_scaled_s / mc_s
     print(f"monte_carlo / floor = {ratio:.2f} (target <= 1.5) {'OK' if ratio <= 1.5 else 'MISSED'}")
-    print(f"speed-up over plain Python = {speed_up:,.0f}x (target >= 100) {'OK' if speed_up >= 100 else 'MISSED'}")
+    loops = (("all draws", python_full_s), (f"{args.python_draws} draws scaled", python_scaled_s))
+    for label, python in loops:
+        if math.isnan(python):
+            continue
+        speed_up = python / mc_s
+        print(f"speed-up over plain Python = {speed_up:,.0f}x (target >= 100) "
+              f"{'OK' if speed_up >= 100 else 'MISSED'}   [loop timed on {label}]")
 
     tracemalloc.start()
     start = time.perf_counter()

@@ -389,7 +389,9 @@ def _format_rate(value: float) -> str:
     return f"{value:,.0f}" if abs(value) >= 100 else f"{value:,.2f}"
 
 
-def _rate_sentence(label: str, tie: float | None, side: str | None, now: float, ahead: bool, unit: str) -> str:
+def _rate_sentence(
+    label: str, tie: float | None, side: str | None, now: float, ahead: bool, unit: str
+) -> str:
     if tie is None or side is None:
         return f"No value of the {label} makes these two tie."
     where = f"{_format_rate(tie)} {unit} (now {_format_rate(now)})"
@@ -585,8 +587,10 @@ def lower_envelope_lines(
     gamma_k = Pk_k / 1000. For a pair (i, j) the tie line f_i = f_j is
     written P(t) = P0 + t v; the segment kept is the interval of t inside
     the rectangle of the ranges and where f_i(P(t)) <= f_k(P(t)) for every
-    other k (each a linear inequality in t, with a tolerance of 1e-9 of the
-    largest TOC). The grid only proposes the pairs; the end points are exact.
+    other k (each a linear inequality in t; one parallel to the line holds
+    when within 1e-9 of the largest TOC). Intervals shorter than 1e-6 of the
+    rectangle's diagonal are points where regions meet across a corner and
+    are dropped. The grid only proposes the pairs; the end points are exact.
 
     References
     ----------
@@ -611,6 +615,9 @@ def lower_envelope_lines(
     b_lo, b_hi = float(b_axis.min()), float(b_axis.max())
     corners = offers.toc(np.array([a_lo, a_lo, a_hi, a_hi]), np.array([b_lo, b_hi, b_lo, b_hi]), c)
     tolerance = 1e-9 * max(1.0, float(np.max(np.abs(corners))))
+    # Regions that meet only at a point (across a corner) leave an interval of
+    # rounding-error length; anything shorter than this is such a point.
+    min_length = 1e-6 * math.hypot(a_hi - a_lo, b_hi - b_lo)
 
     segments = []
     for i, j in _adjacent_pairs(winners):
@@ -620,7 +627,7 @@ def lower_envelope_lines(
             continue
         origin = -d_alpha / norm2 * np.array([d_beta, d_gamma])
         direction = np.array([-d_gamma, d_beta]) / math.sqrt(norm2)
-        # Each constraint reads u + t * w <= slack.
+        # Each constraint reads u + t * w <= 0.
         others = np.ones(len(offers), dtype=bool)
         others[[i, j]] = False
         u = np.concatenate(
@@ -636,14 +643,15 @@ def lower_envelope_lines(
                 direction[0] * (beta[i] - beta[others]) + direction[1] * (gamma[i] - gamma[others]),
             ]
         )
-        slack = np.concatenate([np.zeros(4), np.full(int(others.sum()), tolerance)])
-        if np.any((w == 0) & (u > slack)):
+        # A constraint parallel to the line holds everywhere on it or nowhere.
+        parallel = w == 0
+        if np.any(parallel & (u > tolerance)):
             continue
-        bound = (slack - u)[w != 0] / w[w != 0]
-        positive = w[w != 0] > 0
+        bound = -u[~parallel] / w[~parallel]
+        positive = w[~parallel] > 0
         t_hi = float(np.min(bound[positive])) if np.any(positive) else math.inf
         t_lo = float(np.max(bound[~positive])) if np.any(~positive) else -math.inf
-        if not t_lo < t_hi:
+        if not t_hi - t_lo > min_length:
             continue
         start = origin + t_lo * direction
         end = origin + t_hi * direction
@@ -712,24 +720,20 @@ def _present_worth_kernel(x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.n
     """A, B, C for 1-D input arrays of equal length, already checked (see the public wrapper)."""
     years = x["years"]
     horizon = int(years.max())
-    t = np.arange(1.0, horizon + 1.0)
+    t = np.arange(1.0, horizon + 1.0)[:, None]
     t_less_1 = t - 1.0
-    log_i = np.log1p(x["discount_rate"])[:, None]
-    log_e = np.log1p(x["energy_escalation"])[:, None]
-    log_g2 = 2.0 * np.log1p(x["load_growth"])[:, None]
-    discount = -t * log_i
-    # Four weights per year: 1/(1+i)^t times (1+e)^(t-1), (1+g)^(2(t-1)) or both.
-    series = [
-        np.exp(discount),
-        np.exp(t_less_1 * log_e + discount),
-        np.exp(t_less_1 * log_g2 + discount),
-        np.exp(t_less_1 * (log_e + log_g2) + discount),
-    ]
+    # Logs of the four year weights, each a (years x elements) slab: the sums
+    # over years then run along contiguous rows. Years beyond an element's n
+    # get -inf, so their weight exp(-inf) is exactly 0.
+    logs = np.empty((4, horizon, years.size))
+    np.multiply(-t, np.log1p(x["discount_rate"]), out=logs[0])
     if np.any(years != horizon):
-        beyond = t > years[:, None]
-        for weight in series:
-            weight[beyond] = 0.0
-    s_d, s_e, s_g, s_eg = (weight.sum(axis=1) for weight in series)
+        logs[0][t > years] = -np.inf
+    np.add(logs[0], t_less_1 * np.log1p(x["energy_escalation"]), out=logs[1])
+    growth = t_less_1 * (2.0 * np.log1p(x["load_growth"]))
+    np.add(logs[0], growth, out=logs[2])
+    np.add(logs[1], growth, out=logs[3])
+    s_d, s_e, s_g, s_eg = np.exp(logs, out=logs).sum(axis=1)
 
     sc, rf = x["capacity_cost_per_kw_year"], x["responsibility_factor"]
     price, carbon = x["energy_price_per_kwh"], x["carbon_cost_per_kwh"]
@@ -762,10 +766,12 @@ def present_worth_rates_vectorised(inputs_arrays: Mapping[str, Any]) -> tuple[An
     -----
     Same conventions as ``rates_present_worth``: year t = 1..n, cash flows
     at the end of the year, price_t = price (1 + e)^(t-1),
-    peak_t = peak (1 + g)^(t-1). With the (elements x max n) matrices of
-    year weights D_t = (1 + i)^-t, E_t = (1 + e)^(t-1) D_t,
-    G_t = (1 + g)^(2(t-1)) D_t and EG_t = (1 + e)^(t-1) (1 + g)^(2(t-1)) D_t,
-    set to zero for t > n of that element, and S_X their row sums:
+    peak_t = peak (1 + g)^(t-1). With the matrices of year weights over
+    (years 1..max n) x elements (the transpose of elements x years, so that
+    the sums run along contiguous rows) D_t = (1 + i)^-t,
+    E_t = (1 + e)^(t-1) D_t, G_t = (1 + g)^(2(t-1)) D_t and
+    EG_t = (1 + e)^(t-1) (1 + g)^(2(t-1)) D_t, set to zero for t > n of
+    that element, and S_X their sums over the years:
 
     A = SC S_D + hours (price S_E + carbon S_D),
     B = peak^2 (SC RF S_G + hours LsF (price S_EG + carbon S_G)),
@@ -788,7 +794,8 @@ def present_worth_rates_vectorised(inputs_arrays: Mapping[str, Any]) -> tuple[An
     step = max(1, RATE_CHUNK_ELEMENTS // MAX_YEARS)
     for start in range(0, size, step):
         part = {name: array[start : start + step] for name, array in flat.items()}
-        a[start : start + step], b[start : start + step], c[start : start + step] = _present_worth_kernel(part)
+        part_rates = _present_worth_kernel(part)
+        a[start : start + step], b[start : start + step], c[start : start + step] = part_rates
     return as_output(a.reshape(shape)), as_output(b.reshape(shape)), as_output(c.reshape(shape))
 
 
@@ -827,7 +834,9 @@ def present_worth_rates_fn(inputs: Mapping[str, float]) -> tuple[float, float, f
     return rates.no_load_rate_per_kw, rates.load_rate_per_kw, rates.aux_rate_per_kw
 
 
-def _checked_rates(field: str, rates: Any, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _checked_rates(
+    field: str, rates: Any, shape: tuple[int, ...]
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     try:
         a, b, c = rates
     except (TypeError, ValueError):
@@ -881,7 +890,10 @@ class TornadoRow:
 
 
 def _tornado_point(
-    rates_fn: Callable[[Mapping[str, float]], Any], inputs: Mapping[str, float], offers: OfferArrays, base_leader: int
+    rates_fn: Callable[[Mapping[str, float]], Any],
+    inputs: Mapping[str, float],
+    offers: OfferArrays,
+    base_leader: int,
 ) -> tuple[float, int]:
     a, b, c = (float(v) for v in _checked_rates("rates_fn", rates_fn(inputs), ()))
     toc = offers.toc(a, b, c)
@@ -937,8 +949,9 @@ def tornado(
     _need_offers(offers, 2)
     base = {name: _input_value(name, value) for name, value in base_inputs.items()}
     a, b, c = (float(v) for v in _checked_rates("rates_fn", rates_fn(base), ()))
-    base_leader = int(np.argmin(offers.toc(a, b, c)))
-    margin_base, _ = _tornado_point(rates_fn, base, offers, base_leader)
+    toc = offers.toc(a, b, c)
+    base_leader = int(np.argmin(toc))
+    margin_base = float(np.delete(toc, base_leader).min() - toc[base_leader])
     base_id = int(offers.offer_ids[base_leader])
 
     rows = []
@@ -1190,8 +1203,10 @@ def monte_carlo(
     seed : int
         Seed of ``numpy.random.default_rng``, >= 0.
     rates_fn : callable, optional
-        Vectorised rates: maps a dict of 1-D input arrays (equal length) to
-        (A, B, C) arrays [currency/kW]. Default
+        Vectorised rates: maps a dict of 1-D input arrays (equal length;
+        ``years`` as whole-valued floats) to (A, B, C) arrays [currency/kW].
+        It is called once with the base inputs (length 1), then chunk by
+        chunk. Default: the present-worth method, as
         ``present_worth_rates_vectorised``.
     chunk_size : int, optional
         Draws per chunk when finding winners; default 65,536 // offers
@@ -1233,10 +1248,13 @@ def monte_carlo(
     Percentiles: exact, numpy's default "linear" definition (Hyndman and Fan
     type 7) on the float64 TOC values. A second pass recomputes TOC for a
     block of offers over all draws and selects the needed order statistics
-    with ``numpy.partition``; no binning or sketch, so the only error is the
-    float64 rounding of TOC itself (about 1e-16 relative). Memory:
-    draws x (inputs + 5) x 8 bytes plus the two work blocks, about 30 MB for
-    100,000 draws and 1,000 offers, instead of 800 MB for the whole matrix.
+    with ``numpy.partition``; no binning or sketch, so the values returned
+    are order statistics of the computed TOCs, interpolated as numpy does,
+    and the only error is the float64 rounding of TOC itself (a few units in
+    the last place). Memory: draws x (varied inputs + 5) x 8 bytes plus the
+    work blocks (percentile_block_bytes, or one offer's draws if larger),
+    about 17 MiB at peak for 100,000 draws and 1,000 offers (bench), where
+    the whole float64 TOC matrix would take 763 MiB.
 
     References
     ----------
@@ -1328,18 +1346,15 @@ def monte_carlo(
         quantiles[start:stop] = _linear_percentiles(toc, PERCENTILES)
         report(0.3 + 0.7 * stop / n_offers)
 
-    outcomes = tuple(
-        OfferOutcome(
-            offer_id=int(offers.offer_ids[j]),
-            win_probability=float(wins[j] / n_draws),
-            toc_p5=float(quantiles[j, 0]),
-            toc_p50=float(quantiles[j, 1]),
-            toc_p95=float(quantiles[j, 2]),
-            toc_mean=float(toc_mean[j]),
-            expected_regret=float(regret[j]),
-        )
-        for j in range(n_offers)
+    columns = zip(
+        offers.offer_ids.tolist(),
+        (wins / n_draws).tolist(),
+        *quantiles.T.tolist(),
+        toc_mean.tolist(),
+        regret.tolist(),
+        strict=True,
     )
+    outcomes = tuple(OfferOutcome(*row) for row in columns)
     return MonteCarloResult(
         draws=n_draws,
         seed=seed_value,
@@ -1365,11 +1380,15 @@ def _toc_by_offer(losses_by_offer: np.ndarray, rates_by_column: np.ndarray, out:
             stop = min(n_draws, start + PRODUCT_ELEMENTS)
             # A one-row slice is contiguous, so matmul writes into it directly.
             np.matmul(
-                losses_by_offer[row : row + 1], rates_by_column[:, start:stop], out=out[row : row + 1, start:stop]
+                losses_by_offer[row : row + 1],
+                rates_by_column[:, start:stop],
+                out=out[row : row + 1, start:stop],
             )
 
 
-def _regret_sums(winners: np.ndarray, wins: np.ndarray, rate_rows: np.ndarray, losses: np.ndarray) -> np.ndarray:
+def _regret_sums(
+    winners: np.ndarray, wins: np.ndarray, rate_rows: np.ndarray, losses: np.ndarray
+) -> np.ndarray:
     """Sum over draws of TOC_j - TOC_winner, grouped by winner (see monte_carlo, Notes)."""
     n_offers = losses.shape[1]
     winning = np.flatnonzero(wins)

@@ -8,7 +8,7 @@ from __future__ import annotations
 from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, StringConstraints
+from pydantic import BaseModel, ConfigDict, Field, StringConstraints, model_validator
 
 # Upper bounds reject absurd values (a typo of several orders of magnitude), not real units:
 # the largest power transformers are around 1,500 MVA with load losses of a few MW.
@@ -913,3 +913,166 @@ class CertificateSummaryOut(BaseModel):
     outside_tolerance_units: int
     tolerance_standard: str
     currency: str
+
+
+# --- installed fleet --------------------------------------------------------------------------
+
+class FleetUnitCreate(Strict):
+    asset_id: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=64)]
+    site: Annotated[str, StringConstraints(strip_whitespace=True, max_length=120)] = ""
+    region: Annotated[str, StringConstraints(strip_whitespace=True, max_length=120)] = ""
+    rating_kva: Annotated[float, Field(gt=0, le=MAX_RATING_KVA)]
+    phases: Literal[1, 3] = 3
+    insulation: Literal["liquid", "dry"] = "liquid"
+    year_installed: Annotated[int, Field(ge=1900, le=2200)]
+    no_load_loss_w: LossW | None = Field(default=None, description="Left out: estimated from the typical-loss table.")
+    load_loss_w: LossW | None = Field(default=None, description="Left out: estimated from the typical-loss table.")
+    peak_load_pu: Annotated[float, Field(ge=0, le=5)] | None = None
+    peak_load_kva: Annotated[float, Field(ge=0, le=MAX_RATING_KVA * 5)] | None = None
+    loss_factor: Fraction
+
+    @model_validator(mode="after")
+    def _one_peak(self):
+        if self.peak_load_pu is None and self.peak_load_kva is None:
+            raise ValueError("give peak_load_pu or peak_load_kva")
+        return self
+
+
+class FleetUnitOut(Out):
+    id: int
+    asset_id: str
+    site: str
+    region: str
+    rating_kva: float
+    phases: int
+    insulation: str
+    year_installed: int
+    no_load_loss_w: float
+    load_loss_w: float
+    no_load_loss_estimated: bool
+    load_loss_estimated: bool
+    peak_load_pu: float
+    loss_factor: float
+    version: int
+
+
+class FleetUnitsOut(BaseModel):
+    total: int
+    offset: int
+    units: list[FleetUnitOut]
+
+
+class FleetImportOut(BaseModel):
+    id: int
+    filename: str
+    created_by: str
+    created_at: datetime
+    committed_at: datetime | None
+    rows: int
+    problems: list[ImportProblem]
+    problem_count: int
+    creates: int
+    updates: int
+    estimated_no_load: int
+    estimated_load: int
+    can_commit: bool
+
+
+class FleetSummaryOut(BaseModel):
+    cost_basis_id: int
+    units: int
+    no_load_energy_kwh_per_year: float
+    load_energy_kwh_per_year: float
+    loss_cost_per_year: float
+    co2_t_per_year: float
+    units_with_estimated_losses: int
+
+
+class FleetGroupOut(BaseModel):
+    group: str
+    units: int
+    no_load_energy_kwh_per_year: float
+    load_energy_kwh_per_year: float
+    loss_cost_per_year: float
+    co2_t_per_year: float
+    units_with_estimated_losses: int
+
+
+class FleetGroupsOut(BaseModel):
+    by: str
+    cost_basis_id: int
+    groups: list[FleetGroupOut]
+
+
+class FleetUnitBrief(BaseModel):
+    asset_id: str
+    region: str
+    site: str
+    rating_kva: float
+    peak_load_pu: float
+
+
+class FleetLoadingOut(BaseModel):
+    max_loading_pu: float
+    min_loading_pu: float
+    overloaded_count: int
+    oversized_count: int
+    overloaded: list[FleetUnitBrief]
+    oversized: list[FleetUnitBrief]
+
+
+class ShortlistIn(Strict):
+    cost_basis_id: int = Field(ge=1)
+    candidate: Literal["limit_table", "awarded_lots"] = "limit_table"
+    limit_table: Annotated[str, StringConstraints(max_length=64)] = "eu-tier-2"
+    replacement_cost_per_kva: Annotated[float, Field(ge=0, le=1e6)] = 30.0
+    replacement_cost_fixed: Annotated[float, Field(ge=0, le=1e8)] = 4000.0
+    installation_cost: Annotated[float, Field(ge=0, le=1e8)] = 2000.0
+    salvage_value: Annotated[float, Field(ge=0, le=1e8)] = 0.0
+    service_life_years: Annotated[int, Field(ge=1, le=100)] = 40
+    sizing_years: Annotated[int, Field(ge=0, le=60)] = 10
+    load_growth_pct: Annotated[float, Field(ge=-20, le=50)] = 1.0
+    max_loading_pu: Annotated[float, Field(gt=0, le=1.0)] = 0.9
+    discount_rate_pct: Annotated[float, Field(gt=-50, le=100)] | None = None
+    reference_year: Annotated[int, Field(ge=1900, le=2200)] | None = None
+    region: str | None = None
+    min_npv: float = 0.0
+    limit: Annotated[int, Field(ge=1, le=100_000)] = 500
+
+
+class ShortlistRowOut(BaseModel):
+    asset_id: str
+    region: str
+    site: str
+    rating_kva: float
+    year_installed: int
+    peak_load_pu: float
+    losses_estimated: bool
+    right_sized_rating_kva: float
+    candidate_no_load_loss_w: float
+    candidate_load_loss_w: float
+    annual_saving: float
+    co2_saving_t: float
+    remaining_life_years: float
+    net_cost: float
+    npv: float
+    simple_payback_years: float | None
+
+
+class ShortlistOut(BaseModel):
+    cost_basis_id: int
+    candidate: str
+    units_evaluated: int
+    units_on_shortlist: int
+    programme_cost: float
+    programme_annual_saving: float
+    programme_co2_saving_t: float
+    programme_npv: float
+    rows: list[ShortlistRowOut]
+
+
+class TypicalLossesIn(Strict):
+    name: Text
+    source: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=300)]
+    rows: Annotated[list[list[float]], Field(min_length=1, max_length=5000)] = Field(
+        description="Rows of [insulation code (0 liquid, 1 dry), from_year, to_year, rating_kva, no_load_loss_w, load_loss_w].")

@@ -2,7 +2,7 @@
 
 from fastapi import APIRouter
 
-from server.api import cost_bases, factory_tests, intake, load_shapes, offers, people, records, tenders
+from server.api import cost_bases, factory_tests, fleet, intake, load_shapes, offers, people, records, tenders
 
 router = APIRouter(prefix="/api/v1")
 router.include_router(people.router)
@@ -13,3 +13,4 @@ router.include_router(offers.router)
 router.include_router(records.router)
 router.include_router(intake.router)
 router.include_router(factory_tests.router)
+router.include_router(fleet.router)

@@ -27,6 +27,12 @@ _WORDING: dict[str, tuple[str, str, str]] = {
     "system_capacity_cost_per_kw_year": ("System capacity cost", "{cur}/kW a year", ""),
     "energy_cost_per_kwh": ("Energy cost", "{cur}/kWh", ""),
     "fixed_charge_rate_pct": ("Fixed charge rate", "% a year", ""),
+    "energy_price_path_per_kwh": (
+        "Energy price path", "{cur}/kWh", "Optional: one price for each year 1 to n, one per line or separated by "
+        "commas. It replaces the price and its escalation.",
+    ),
+    "carbon_price_per_t": ("Carbon price", "{cur}/t CO\u2082", "Added to every year's energy price."),
+    "emission_factor_t_per_mwh": ("Grid emission factor", "t CO\u2082/MWh", "Of the energy that covers the losses."),
 }
 
 @dataclass(frozen=True)
@@ -37,6 +43,7 @@ class InputBox:
     hint: str
     required: bool
     default: Any
+    kind: str = "decimal"  # as the field macro takes it: "decimal", "numeric" or "textarea"
 
 
 def method_boxes(method: str, currency: str = "") -> list[InputBox]:
@@ -50,8 +57,27 @@ def method_boxes(method: str, currency: str = "") -> list[InputBox]:
         # Without a currency yet, "/kW" alone still says what the number is.
         unit = unit.format(cur=currency) if currency else unit.replace("{cur}", "").lstrip()
         default = None if info.default is PydanticUndefined else info.default
-        boxes.append(InputBox(name, label, unit, hint, info.is_required(), default))
+        kind = "numeric" if name == "years" else "textarea" if name in _LISTS else "decimal"
+        boxes.append(InputBox(name, label, unit, hint, info.is_required(), default, kind))
     return boxes
+
+
+# Inputs that take a list of numbers (a textarea, one number per line or comma-separated).
+_LISTS = {"energy_price_path_per_kwh"}
+
+
+def price_path_coverage(values: dict[str, Any]) -> dict[str, Any] | None:
+    """How many years an explicit energy price path covers against the evaluation period, for
+    the live preview; None when no path is given."""
+    path = values.get("energy_price_path_per_kwh")
+    if values.get("method") != "present_worth" or not isinstance(path, list) or not path:
+        return None
+    years = values.get("years")
+    try:
+        n = int(str(years))
+    except ValueError:
+        n = None
+    return {"prices": len(path), "years": n, "matches": n == len(path)}
 
 
 def input_label(name: str) -> str:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from types import UnionType
 from typing import Annotated, Any, Literal, Union, get_args, get_origin
 
@@ -105,11 +106,31 @@ def patch_data(form: FormValues, create_model: type[BaseModel], names: list[str]
     return data
 
 
+def _takes_list(model: type[BaseModel], name: str) -> bool:
+    """Whether a field is a list (of numbers, here), which a form types as text."""
+    annotation = model.model_fields[name].annotation
+    options = get_args(annotation) if get_origin(annotation) in (Union, UnionType) else (annotation,)
+    for option in options:
+        while get_origin(option) is Annotated:
+            option = get_args(option)[0]
+        if get_origin(option) is list:
+            return True
+    return False
+
+
+def number_list(text: str) -> list[str]:
+    """A box of numbers, one per line or separated by commas, semicolons or spaces."""
+    return [part for part in re.split(r"[\s,;]+", text) if part]
+
+
 def full_inputs(form: FormValues, model: type[BaseModel]) -> dict[str, Any]:
-    """All of a cost basis method's inputs; an empty optional box takes its default."""
+    """All of a cost basis method's inputs; an empty optional box takes its default, and a
+    list box (an energy price path) becomes its numbers."""
     data: dict[str, Any] = {}
     for name in model.model_fields:
         value = form.get(name, "")
+        if isinstance(value, str) and _takes_list(model, name):
+            value = number_list(value) or ""
         if value == "" and not _is_required(model, name):
             value = _default(model, name)
         data[name] = value

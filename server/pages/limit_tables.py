@@ -88,11 +88,19 @@ def _service_error(exc: InvalidField, lines: list[int]) -> dict[str, str]:
 
 def _meta(form: FormValues) -> dict[str, Any]:
     """The table's describing boxes; "any" phases or insulation is no value."""
-    data = {name: form.get(name, "") for name in _META}
+    data: dict[str, Any] = {name: form.get(name, "") for name in _META}
     for name in ("phases", "insulation", "per_unit_load"):
         if data[name] == "":
             data.pop(name)
-    return data
+    return data | _phases(form)
+
+
+def _phases(form: FormValues) -> dict[str, Any]:
+    """Phases as the schema's whole-number choice (a form posts text); "any" is no value."""
+    value = form.get("phases", "")
+    if not value:
+        return {}
+    return {"phases": int(value) if value.isdigit() else value}
 
 
 def _list_page(session, **extra: Any) -> dict[str, Any]:
@@ -191,7 +199,9 @@ def save_limit_table(request: Request, key: str, session: SessionDep, form: Form
     try:
         rows, lines = parse_rows(form.get("rows", ""), form.get("kind", ""))
         data = {name: form.get(name, "") for name in ("version", "name", "source", "per_unit_load")}
-        data |= {name: form.get(name) or None for name in ("phases", "insulation")} | {"rows": rows}
+        if not data["per_unit_load"]:
+            data.pop("per_unit_load")  # kept as stored
+        data |= {"phases": None, "insulation": form.get("insulation") or None} | _phases(form) | {"rows": rows}
         compliance.patch_table(session, key, schemas.LimitTablePatch.model_validate(data))
     except RowsText as exc:
         errors = {"rows": str(exc)}

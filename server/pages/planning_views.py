@@ -110,12 +110,13 @@ def shown_value(field: str, value: Any) -> str:
     return str(value)
 
 
-def _change(before: Any, after: Any) -> str:
+def _change(field: str, before: Any, after: Any) -> str:
     numbers = all(isinstance(v, int | float) and not isinstance(v, bool) for v in (before, after))
     if not numbers:
         return ""
     delta = after - before
-    text = ("+" if delta > 0 else "\u2212" if delta < 0 else "") + fmt_plain(round(abs(delta), 9))
+    size = fmt_rate(abs(delta)) if field in RATE_LABELS else fmt_plain(round(abs(delta), 9))
+    text = ("+" if delta > 0 else "\u2212" if delta < 0 else "") + size
     if before:
         text += f" ({'+' if delta > 0 else chr(0x2212) if delta < 0 else ''}{fmt_number(abs(delta) / abs(before) * 100, 1)} %)"
     return text
@@ -132,10 +133,12 @@ class DiffRow:
     is_rate: bool
 
 
-def diff_rows(diff: schemas.RevisionDiffOut, currency: str) -> list[DiffRow]:
+def diff_rows(diff: schemas.RevisionDiffOut, basis: schemas.CostBasisDetailOut) -> list[DiffRow]:
     """The changed inputs, then the rates that changed with them (a direct basis's rates are
     its inputs, so they are listed once)."""
+    currency = basis.currency
     wording = _wording(currency)
+    input_names = {name for r in basis.revisions if r.revision in (diff.revision, diff.against) for name in r.inputs}
     seen: set[tuple[str, str, str]] = set()
     inputs, rates = [], []
     for change in diff.changes:
@@ -143,15 +146,16 @@ def diff_rows(diff: schemas.RevisionDiffOut, currency: str) -> list[DiffRow]:
         if key in seen:
             continue
         seen.add(key)
-        is_rate = change.field in RATE_LABELS and change.field not in {r.field for r in inputs}
+        is_rate = change.field in RATE_LABELS and change.field not in input_names
         if change.field == "method":
             label, unit = "Method", ""
         elif is_rate:
             label, unit = RATE_LABELS[change.field], f"{currency}/kW"
         else:
             label, unit = wording.get(change.field, (change.field.replace("_", " ").capitalize(), ""))
+            unit = "" if unit == "0 to 1" else unit  # a range, not a unit: the values say enough here
         row = DiffRow(change.field, label, unit, shown_value(change.field, change.before),
-                      shown_value(change.field, change.after), _change(change.before, change.after), is_rate)
+                      shown_value(change.field, change.after), _change(change.field, change.before, change.after), is_rate)
         (rates if is_rate else inputs).append(row)
     return inputs + rates
 
@@ -198,14 +202,18 @@ class InputRow:
     label: str
     unit: str
     value: str
+    note: str = ""
 
 
 def workings_inputs(out: schemas.WorkingsOut) -> list[InputRow]:
     """The revision's inputs in the editor's order, in words, with their units."""
+    path = out.inputs.get("energy_price_path_per_kwh")
     rows = []
     for box in method_boxes(out.method, out.currency):
         value = out.inputs.get(box.name, box.default)
-        rows.append(InputRow(box.name, box.label, box.unit, shown_value(box.name, value)))
+        note = "not used: the price path replaces it" if path and box.name in (
+            "energy_price_per_kwh", "energy_escalation_pct") else ""
+        rows.append(InputRow(box.name, box.label, box.unit, shown_value(box.name, value), note))
     return rows
 
 
@@ -272,16 +280,19 @@ def workings_table(out: schemas.WorkingsOut) -> dict[str, Any]:
             groups.append((_RATE_NAMES[rate], columns))
     index = {key: k for k, key in enumerate(out.table_columns)}
     money = [c for _, columns in groups for c in columns]
+    # A rate's first column opens its group; its year's term (the sum of the parts) stands out.
+    css = {c.key: " ".join(filter(None, ("group-start" if c is columns[0] else "", "strong" if c.key.endswith("_term") else "")))
+           for _, columns in groups for c in columns}
     totals = {c.key: sum(row[index[c.key]] for row in out.table) for c in money}
     return {
         "leading": leading,
         "groups": groups,
         "rows": [
             {"leading": [fmt_number(row[index[c.key]], c.decimals) for c in leading],
-             "money": [fmt_number(row[index[c.key]], c.decimals) for c in money]}
+             "money": [(fmt_number(row[index[c.key]], c.decimals), css[c.key]) for c in money]}
             for row in out.table
         ],
-        "totals": [fmt_number(totals[c.key], 1) for c in money],
+        "totals": [(fmt_number(totals[c.key], 1), css[c.key]) for c in money],
     }
 
 

@@ -34,7 +34,7 @@ def compare_revisions(request: Request, cost_basis_id: int, session: SessionDep)
     rows, status = None, 422
     if not errors:
         diff = service.diff_revisions(session, cost_basis_id, int(chosen["revision"]), int(chosen["against"]))
-        rows, status = planning_views.diff_rows(diff, basis.currency), 200
+        rows, status = planning_views.diff_rows(diff, basis), 200
     context |= {"compare": chosen, "compare_errors": errors, "diff_rows": rows}
     return page_or_partial(request, "cost_bases/revision_compare.html", "cost_bases/_revision_diff.html",
                            context, status)

@@ -44,9 +44,10 @@ def _frame(y_name: str) -> dict[str, Any]:
 
 
 def daily_curves_chart(seasons: list[dict[str, Any]], unit: str = "pu") -> dict[str, Any]:
-    """Lines of each season's weekday and weekend curve over the 24 hours of a day.
+    """Steps of each season's weekday and weekend curve over the 24 hours of a day.
 
     ``seasons`` as stored with a daily load shape: name, months, weekday[24], weekend[24].
+    Each value holds for its whole hour, so the last one is repeated at 24:00 to draw its step.
     """
     series = []
     for index, season in enumerate(seasons):
@@ -59,14 +60,14 @@ def daily_curves_chart(seasons: list[dict[str, Any]], unit: str = "pu") -> dict[
                 "symbol": "none",
                 "lineStyle": {"color": colour, "type": dash, "width": 2},
                 "itemStyle": {"color": colour},
-                "data": [round(float(v), 4) for v in season[day_type]],
+                "data": [round(float(v), 4) for v in [*season[day_type], season[day_type][-1]]],
             })
     return _frame(f"Load ({unit_label(unit)})") | {
         "legend": {"top": 0, "left": 0, "itemWidth": 22, "itemHeight": 10, "textStyle": {"fontSize": 13}},
-        "grid": {"left": 56, "right": 24, "top": 64, "bottom": 48},
+        "grid": {"left": 56, "right": 24, "top": 76, "bottom": 48},
         "xAxis": {
             "type": "category",
-            "data": HOUR_LABELS,
+            "data": [*HOUR_LABELS, "24:00"],
             "boundaryGap": False,
             "name": "Hour of the day",
             "nameLocation": "middle",
@@ -112,7 +113,7 @@ def monthly_average_day_chart(values: list[float], year: int, unit: str) -> dict
     ]
     return _frame(f"Average load ({unit_label(unit)})") | {
         "legend": {"top": 0, "left": 0, "itemWidth": 18, "itemHeight": 8, "textStyle": {"fontSize": 12}},
-        "grid": {"left": 64, "right": 24, "top": 64, "bottom": 48},
+        "grid": {"left": 64, "right": 24, "top": 76, "bottom": 48},
         "xAxis": {
             "type": "category",
             "data": HOUR_LABELS,

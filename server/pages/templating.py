@@ -78,6 +78,9 @@ def input_value(value: Any) -> str:
         return str(value).lower()
     if isinstance(value, float):
         return f"{value:.0f}" if value.is_integer() and abs(value) < 1e15 else repr(value)
+    if isinstance(value, list):
+        # A list box (an energy price path) shows one value per line.
+        return "\n".join(input_value(v) for v in value)
     return str(value)
 
 

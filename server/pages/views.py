@@ -13,8 +13,8 @@ from sqlalchemy.orm import Session
 
 from server import schemas
 from server.errors import Conflict, InvalidField
-from server.pages.basis_form import chosen_method, input_label, method_boxes
-from server.pages import intake_views
+from server.pages.basis_form import chosen_method, input_label, method_boxes, price_path_coverage
+from server.pages import intake_views, planning_views
 from server.pages.charts import toc_breakdown_chart
 from server.pages.forms import field_errors, full_inputs
 from server.pages.templating import input_value
@@ -37,7 +37,7 @@ def tender_list(session: Session) -> dict[str, Any]:
     return {
         "tenders": [tenders.tender_out(session, t) for t in tenders.list_tenders(session)],
         "bases": basis_choices(session),
-    } | intake_views.lot_form_extras(session)
+    } | intake_views.lot_form_extras(session) | planning_views.lot_loading(session)
 
 
 def tender_detail(session: Session, tender_id: int) -> dict[str, Any]:
@@ -45,7 +45,7 @@ def tender_detail(session: Session, tender_id: int) -> dict[str, Any]:
     awarded = pages_support.awarded_lot_ids(session, [lot.id for lot in tender.lots])
     return {"tender": tender, "bases": basis_choices(session), "awarded_lots": awarded} | (
         intake_views.lot_form_extras(session) | intake_views.tender_extras(session, tender)
-    )
+    ) | planning_views.tender_loadings(session, tender_id)
 
 
 def price_note(result: schemas.RankingOut) -> dict[str, Any] | None:
@@ -111,6 +111,7 @@ def lot_detail(session: Session, lot_id: int, include_non_compliant: bool = Fals
         **award_state(session, lot_id),
         **intake_views.compliance_view(session, lot_id),
         **intake_views.curves_view(session, lot_id),
+        **planning_views.lot_loading(session),
     }
 
 
@@ -179,12 +180,13 @@ def rates_preview(values: dict[str, Any]) -> dict[str, Any]:
     except InvalidField as exc:
         problems = {exc.field: exc.detail}
     else:
-        return {"rates": rates, "problems": []}
+        return {"rates": rates, "problems": [], "path": price_path_coverage(values)}
     # Before a box is filled in, an order to fill it in reads like a reproach.
     wording = {"fill this in": "still to fill in"}
     return {
         "rates": None,
         "problems": [(input_label(name), wording.get(message, message)) for name, message in problems.items()],
+        "path": price_path_coverage(values),
     }
 
 

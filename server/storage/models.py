@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import UTC, date, datetime
 from typing import Any
 
-from sqlalchemy import JSON, Boolean, Date, DateTime, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy import JSON, Boolean, Date, DateTime, LargeBinary, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
 NAMING_CONVENTION = {
@@ -322,3 +322,53 @@ class TestCertificate(Base):
     within_tolerance: Mapped[bool] = mapped_column(Boolean, nullable=False)
     penalty: Mapped[float] = mapped_column(Float, nullable=False)
     rejected: Mapped[bool] = mapped_column(Boolean, nullable=False)
+
+
+class FleetUnit(Base):
+    """One installed transformer. Losses marked estimated came from the typical-loss table."""
+
+    __tablename__ = "fleet_units"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    asset_id: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
+    site: Mapped[str] = mapped_column(String(120), nullable=False, default="")
+    region: Mapped[str] = mapped_column(String(120), nullable=False, default="")
+    rating_kva: Mapped[float] = mapped_column(Float, nullable=False)
+    phases: Mapped[int] = mapped_column(Integer, nullable=False, default=3)
+    insulation: Mapped[str] = mapped_column(String(16), nullable=False, default="liquid")
+    year_installed: Mapped[int] = mapped_column(Integer, nullable=False)
+    no_load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
+    load_loss_w: Mapped[float] = mapped_column(Float, nullable=False)
+    no_load_loss_estimated: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    load_loss_estimated: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    peak_load_pu: Mapped[float] = mapped_column(Float, nullable=False)
+    loss_factor: Mapped[float] = mapped_column(Float, nullable=False)
+    load_shape_id: Mapped[int | None] = mapped_column(ForeignKey("load_shapes.id", ondelete="SET NULL"))
+    version: Mapped[int] = mapped_column(Integer, nullable=False, default=1)
+    updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+
+
+class FleetImport(Base):
+    """An uploaded inventory file, checked and waiting to be committed (or dropped)."""
+
+    __tablename__ = "fleet_imports"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    created_by: Mapped[str] = mapped_column(String(64), nullable=False)
+    filename: Mapped[str] = mapped_column(String(200), nullable=False)
+    content: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
+    summary: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    committed_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+
+
+class AppDocument(Base):
+    """A small editable document the application keeps (e.g. the typical-loss table)."""
+
+    __tablename__ = "app_documents"
+
+    key: Mapped[str] = mapped_column(String(64), primary_key=True)
+    value: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    version: Mapped[int] = mapped_column(Integer, nullable=False, default=1)
+    updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    updated_by: Mapped[str] = mapped_column(String(64), nullable=False, default="system")

@@ -1,18 +1,19 @@
 // Upload progress for the metered-year import: htmx reports the request's progress as
-// htmx:xhr:progress events on the form; a <progress> named by data-upload-progress shows it.
+// htmx:xhr:progress events on the form; the box named by data-progress-box (a <progress> and a
+// line of text) shows it.
 // Without script the form posts as usual and the page answers when the server has read the file.
 (function () {
   "use strict";
 
   function parts(form) {
-    var box = document.getElementById(form.getAttribute("data-upload-progress") || "");
+    var box = document.getElementById(form.getAttribute("data-progress-box") || "");
     if (!box) return null;
     return { box: box, bar: box.querySelector("progress"), text: box.querySelector("[aria-live]") };
   }
 
   function formOf(event) {
     var elt = event.detail && event.detail.elt ? event.detail.elt : event.target;
-    return elt && elt.closest ? elt.closest("form[data-upload-progress]") : null;
+    return elt && elt.closest ? elt.closest("form[data-progress-box]") : null;
   }
 
   document.addEventListener("htmx:beforeSend", function (event) {

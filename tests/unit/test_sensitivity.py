@@ -8,7 +8,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from domain import CapitalisationRates, InvalidInput, OfferLosses, rank_offers, rates_direct, total_owning_cost
+from domain import (
+    CapitalisationRates,
+    InvalidInput,
+    OfferLosses,
+    rank_offers,
+    rates_direct,
+    total_owning_cost,
+)
 from domain.rates import rates_present_worth
 from domain.sensitivity import (
     OfferArrays,
@@ -81,6 +88,16 @@ def test_from_offers_puts_offers_in_the_tie_break_order_of_rank_offers():
     ranked = rank_offers(raw, ARTICLE_RATES, 1, 500.0)
     assert offers.offer_ids.tolist() == [r.offer_id for r in ranked] == [2, 3, 9, 7]
     assert offers.offer_ids[leader_index(offers, ARTICLE_RATES)] == 2
+
+
+def test_equal_toc_goes_to_the_lower_price_as_in_rank_offers():
+    # Hand computed (test_toc.py): at A = 1000/kW cheap 10,000 + 5,000 = dear 14,000 + 1,000.
+    cheap = OfferLosses(2, "Zeta", unit_price=10_000.0, no_load_loss_w=5000.0, load_loss_w=0.0)
+    dear = OfferLosses(1, "Alpha", unit_price=14_000.0, no_load_loss_w=1000.0, load_loss_w=0.0)
+    offers = OfferArrays.from_offers([dear, cheap])
+    assert offers.toc(1000.0, 0.0, 0.0).tolist() == [15_000.0, 15_000.0]
+    assert offers.offer_ids[winner_grid(offers, [1000.0], [0.0], 0.0)[0, 0]] == 2
+    assert rank_offers([dear, cheap], rates_direct(1000.0, 0.0), 1, 100.0)[0].offer_id == 2
 
 
 def test_offer_arrays_are_read_only_copies_and_reject_bad_losses():
@@ -228,7 +245,9 @@ def tender_offers(draw):
     ]
 
 
-grid_axis = st.lists(st.sampled_from([0.0, 500.0, 1000.0, 1500.0, 2000.0, 5000.0, 7500.0]), min_size=1, max_size=7)
+grid_axis = st.lists(
+    st.sampled_from([0.0, 500.0, 1000.0, 1500.0, 2000.0, 5000.0, 7500.0]), min_size=1, max_size=7
+)
 
 
 @settings(max_examples=40)
@@ -255,30 +274,75 @@ def test_winner_grid_matches_a_direct_ranking_cell_by_cell(raw, a_values, b_valu
     # The winner at the current basis is the deterministic leader.
     a_now, b_now = basis
     at_basis = winner_grid(offers, [0.0, a_now], [b_now], c_rate)[0, 1]
-    assert offers.offer_ids[at_basis] == rank_offers(raw, CapitalisationRates(a_now, b_now, c_rate), 1, 630.0)[0].offer_id
+    leader = rank_offers(raw, CapitalisationRates(a_now, b_now, c_rate), 1, 630.0)[0].offer_id
+    assert offers.offer_ids[at_basis] == leader
 
 
-def test_tie_lines_separate_the_winners_and_lie_on_equal_toc():
-    # Hand-built: cheap and lossy, dear and efficient, and one in between, over A, B in 0..8000.
+def _segment_set(segments):
+    """(start, end, (first, second)) per segment, end points rounded and in order, sorted by pair."""
+    rows = []
+    for s in segments:
+        ends = sorted(
+            [
+                (round(s.no_load_rate_start_per_kw, 6), round(s.load_rate_start_per_kw, 6)),
+                (round(s.no_load_rate_end_per_kw, 6), round(s.load_rate_end_per_kw, 6)),
+            ]
+        )
+        rows.append((ends[0], ends[1], (s.first_index, s.second_index)))
+    return sorted(rows, key=lambda row: row[2])
+
+
+def test_tie_lines_of_three_offers_meeting_at_one_point():
+    # Hand calculation. TOC = alpha + A beta + B gamma (beta, gamma in kW):
+    # 1: 100,000 + 2 A + 20 B;  2: 115,000 + 1 A + 18 B;  3: 122,500 + 2.5 A + 15 B.
+    # All three equal 210,000 at (A, B) = (5000, 5000). Ties: 1-2 on A + 2B = 15,000
+    # (offer 2 wins for larger A), 1-3 on B = 4,500 + 0.1 A, 2-3 on B = 2,500 + 0.5 A.
+    # Inside 0..10,000: 1-2 from (5000, 5000) to (10000, 2500); 1-3 from (0, 4500) to
+    # (5000, 5000); 2-3 from (5000, 5000) to (10000, 7500).
     offers = _offers(
         (1, 100_000.0, 2_000.0, 20_000.0, 0.0),
-        (2, 140_000.0, 1_000.0, 12_000.0, 0.0),
-        (3, 120_000.0, 1_500.0, 14_000.0, 0.0),
+        (2, 115_000.0, 1_000.0, 18_000.0, 0.0),
+        (3, 122_500.0, 2_500.0, 15_000.0, 0.0),
     )
-    a_values = np.linspace(0.0, 8000.0, 81)
-    b_values = np.linspace(0.0, 8000.0, 81)
-    grid = winner_grid(offers, a_values, b_values, 0.0)
-    assert set(np.unique(grid).tolist()) == {0, 1, 2}
-    segments = lower_envelope_lines(offers, a_values, b_values, 0.0, grid)
-    assert segments
+    axis = np.linspace(0.0, 10_000.0, 101)
+    grid = winner_grid(offers, axis, axis, 0.0)
+    assert (grid[0, 0], grid[50, 100], grid[100, 0]) == (0, 1, 2)  # (A, B) = (0, 0), (10k, 5k), (0, 10k)
+    segments = lower_envelope_lines(offers, axis, axis, 0.0, grid)
+    expected = [
+        ((5000.0, 5000.0), (10000.0, 2500.0), (0, 1)),
+        ((0.0, 4500.0), (5000.0, 5000.0), (0, 2)),
+        ((5000.0, 5000.0), (10000.0, 7500.0), (1, 2)),
+    ]
+    got = _segment_set(segments)
+    assert [g[2] for g in got] == [e[2] for e in expected]
+    assert_allclose([g[:2] for g in got], [e[:2] for e in expected], atol=1e-6)
     for s in segments:
-        for a, b in ((s.no_load_rate_start_per_kw, s.load_rate_start_per_kw), (s.no_load_rate_end_per_kw, s.load_rate_end_per_kw)):
-            assert -1e-9 <= a <= 8000.0 + 1e-9 and -1e-9 <= b <= 8000.0 + 1e-9
         mid_a = (s.no_load_rate_start_per_kw + s.no_load_rate_end_per_kw) / 2
         mid_b = (s.load_rate_start_per_kw + s.load_rate_end_per_kw) / 2
         toc = offers.toc(mid_a, mid_b, 0.0)
         assert_allclose(toc[s.first_index], toc[s.second_index], rtol=1e-12)
         assert toc[s.first_index] <= toc.min() * (1 + 1e-12)
+
+
+def test_regions_that_meet_only_across_a_corner_get_no_tie_line():
+    # Hand calculation: four planes through 200,000 at (5000, 5000) with gradients
+    # (beta, gamma) = (1, 1), (3, 1), (1, 3), (3, 3) kW. The ties are the lines A = 5000
+    # and B = 5000, cut at the centre into four segments; (1, 1) and (3, 3), and (3, 1)
+    # and (1, 3), touch only at the centre.
+    offers = _offers(
+        (1, 190_000.0, 1_000.0, 1_000.0, 0.0),
+        (2, 180_000.0, 3_000.0, 1_000.0, 0.0),
+        (3, 180_000.0, 1_000.0, 3_000.0, 0.0),
+        (4, 170_000.0, 3_000.0, 3_000.0, 0.0),
+    )
+    axis = np.linspace(0.0, 10_000.0, 101)
+    segments = lower_envelope_lines(offers, axis, axis, 0.0)
+    got = _segment_set(segments)
+    assert len(got) == 4
+    assert {g[2] for g in got} == {(0, 1), (0, 2), (1, 3), (2, 3)}
+    for start, end, _ in got:
+        assert (5000.0, 5000.0) in (start, end)
+        assert start[0] == end[0] == 5000.0 or start[1] == end[1] == 5000.0
 
 
 # --------------------------------------------------------------------------- present-worth rates
@@ -318,7 +382,8 @@ def test_vectorised_present_worth_rates_scalar_inputs_and_checks():
     expected = rates_present_worth(**BASE)
     a, b, c = present_worth_rates_vectorised(BASE)
     assert isinstance(a, float)
-    assert_allclose([a, b, c], [expected.no_load_rate_per_kw, expected.load_rate_per_kw, expected.aux_rate_per_kw], rtol=1e-12)
+    scalar = [expected.no_load_rate_per_kw, expected.load_rate_per_kw, expected.aux_rate_per_kw]
+    assert_allclose([a, b, c], scalar, rtol=1e-12)
     assert present_worth_rates_fn(BASE) == (
         expected.no_load_rate_per_kw,
         expected.load_rate_per_kw,
@@ -357,7 +422,8 @@ def test_tornado_where_only_the_load_rate_matters():
     rows = tornado(base, ranges, _direct_rates, offers)
     assert [r.input_name for r in rows] == ["load_rate", "unused", "no_load_rate"]
     top = rows[0]
-    assert (top.margin_base, top.margin_low, top.margin_high, top.swing) == (6_000.0, 8_000.0, -4_000.0, 12_000.0)
+    margins = (top.margin_base, top.margin_low, top.margin_high, top.swing)
+    assert margins == (6_000.0, 8_000.0, -4_000.0, 12_000.0)
     assert (top.leader_id_base, top.leader_id_low, top.leader_id_high) == (10, 10, 11)
     assert (top.leader_changed_low, top.leader_changed_high) == (False, True)
     for row in rows[1:]:
@@ -429,7 +495,10 @@ def test_monte_carlo_with_every_input_fixed_is_the_deterministic_ranking():
 
 
 def _recording_rates():
-    """Vectorised rates A = a, B = b, C = c that keep every input array it is given."""
+    """Vectorised rates A = a, B = b, C = c that keep every input array it is given.
+
+    monte_carlo calls it first with the base inputs, then with the draws chunk by chunk.
+    """
     seen = []
 
     def rates_fn(inputs):
@@ -459,13 +528,15 @@ def test_monte_carlo_matches_a_direct_computation_on_the_same_draws():
     rates_fn, seen = _recording_rates()
     draws = 997  # odd, so the percentile positions fall between samples
     result = monte_carlo(
-        offers, base, distributions, draws, seed=8, rates_fn=rates_fn, chunk_size=50, percentile_block_bytes=8 * draws * 4
+        offers, base, distributions, draws, seed=8, rates_fn=rates_fn, chunk_size=50,
+        percentile_block_bytes=8 * draws * 4,
     )
     drawn = {name: np.concatenate([part[name] for part in seen[1:]]) for name in base}  # seen[0]: the base
     assert drawn["a"].size == draws
     toc = offers.toc(drawn["a"][:, None], drawn["b"][:, None], drawn["c"][:, None])[:, 0, :]
     winners = toc.argmin(axis=1)
-    assert_allclose([o.win_probability for o in result.offers], np.bincount(winners, minlength=n_offers) / draws, rtol=0, atol=0)
+    shares = np.bincount(winners, minlength=n_offers) / draws
+    assert [o.win_probability for o in result.offers] == shares.tolist()
     assert_allclose([o.toc_p5 for o in result.offers], np.percentile(toc, 5, axis=0), rtol=1e-12)
     assert_allclose([o.toc_p50 for o in result.offers], np.percentile(toc, 50, axis=0), rtol=1e-12)
     assert_allclose([o.toc_p95 for o in result.offers], np.percentile(toc, 95, axis=0), rtol=1e-12)
@@ -524,6 +595,13 @@ def test_sampled_inputs_stay_inside_their_distribution_bounds():
     assert 1000.0 <= drawn["b"].min() and drawn["b"].max() <= 3000.0
     assert 200.0 <= drawn["c"].min() and drawn["c"].max() <= 800.0
     assert abs(drawn["c"].mean() - 500.0) < 4 * drawn["c"].std() / math.sqrt(drawn["c"].size)
+    # Normal truncated at +-1 sd: variance sd^2 (1 - 2 phi(1) / (2 Phi(1) - 1)) = (0.5396 sd)^2
+    # (moments of the truncated normal, e.g. Johnson, Kotz and Balakrishnan, vol. 1, ch. 13);
+    # clipping instead of redrawing would pile draws on the bounds and widen it.
+    phi_1 = math.exp(-0.5) / math.sqrt(2 * math.pi)
+    sd_truncated = 300.0 * math.sqrt(1 - 2 * phi_1 / math.erf(1 / math.sqrt(2)))
+    assert_allclose(drawn["c"].std(), sd_truncated, rtol=0.03)
+    assert not np.any((drawn["c"] == 200.0) | (drawn["c"] == 800.0))
     # Triangular mean (low + mode + high) / 3 = 1733.3.
     assert abs(drawn["b"].mean() - 5200.0 / 3) < 4 * drawn["b"].std() / math.sqrt(drawn["b"].size)
     years = drawn["years"]
@@ -551,8 +629,11 @@ def test_monte_carlo_progress_and_cancel():
     [
         ({"loss_factor": {"dist": "lognormal", "low": 0.1, "high": 0.3}}, "distributions[loss_factor]"),
         ({"loss_factor": {"dist": "uniform", "low": 0.3, "high": 0.1}}, "distributions[loss_factor]"),
-        ({"loss_factor": {"dist": "normal", "mean": 0.2, "low": 0.1, "high": 0.3}}, "distributions[loss_factor]"),
-        ({"loss_factor": {"dist": "normal", "mean": 0.2, "sd": 0.01, "low": 0.5, "high": 0.6}}, "distributions[loss_factor]"),
+        ({"loss_factor": {"dist": "normal", "mean": 0.2, "low": 0.1}}, "distributions[loss_factor]"),
+        (
+            {"loss_factor": {"dist": "normal", "mean": 0.2, "sd": 0.01, "low": 0.5, "high": 0.6}},
+            "distributions[loss_factor]",
+        ),
         ({"years": {"dist": "uniform", "low": 20.5, "high": 30}}, "distributions[years].low"),
         ({"los_factor": {"dist": "fixed"}}, "distributions[los_factor]"),
         ({"loss_factor": {"dist": "uniform", "low": 0.5, "high": 1.5}}, "loss_factor"),
