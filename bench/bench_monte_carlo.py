@@ -19,8 +19,8 @@ Targets (from the issue), measured side by side in one run:
 
 Timings are the best of several interleaved repeats so that both sides see the
 same machine state. BLAS threads are left as the environment sets them.
-The offers are invented (random but plausible prices and losses of a 630 kVA
-unit); the inputs are those of the unit tests.
+The offers are invented (random but plausible prices and losses for a unit of
+about 1 MVA); the inputs are those of the unit tests.
 """
 
 from __future__ import annotations

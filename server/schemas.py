@@ -404,9 +404,18 @@ class RankingOut(RatesOut):
 
 
 class ErrorOut(BaseModel):
+    """A refusal: not authenticated (401), not allowed (403), not found (404), a conflict (409)."""
+
     detail: str
-    field: str | None = None
-    current: dict[str, Any] | None = None
+    current: dict[str, Any] | None = Field(default=None, description="With 409 on a stale edit: the stored values.")
+
+
+class UnprocessableOut(BaseModel):
+    """422: the fields that are wrong (``detail`` as a list, each naming its field in ``loc``),
+    or, for a file, a message with its ``problems`` naming rows and columns."""
+
+    detail: str | list[dict[str, Any]]
+    problems: list[dict[str, Any]] | None = None
 
 
 # --- people ---------------------------------------------------------------------------------

@@ -3,8 +3,9 @@
 from fastapi import APIRouter
 
 from server.api import cost_bases, factory_tests, fleet, intake, load_shapes, offers, people, records, tenders
+from server.api.responses import ERRORS
 
-router = APIRouter(prefix="/api/v1")
+router = APIRouter(prefix="/api/v1", responses=ERRORS)
 router.include_router(people.router)
 router.include_router(cost_bases.router)
 router.include_router(load_shapes.router)

@@ -8,11 +8,11 @@ from fastapi import APIRouter, File, UploadFile
 
 from server import schemas
 from server.auth import ANY_ROLE, BUYER
+from server.api.responses import FILE_REFUSED
 from server.deps import SessionDep
 from server.services import test_certificates as service
 
 router = APIRouter(tags=["factory tests"])
-REFUSED = {422: {"model": schemas.ImportRefusedOut, "description": "The file has problems; nothing was stored."}}
 
 
 @router.post("/test-analysis", response_model=schemas.TestAnalysisOut, dependencies=[ANY_ROLE])
@@ -39,7 +39,7 @@ def list_certificates(lot_id: int, session: SessionDep):
 
 
 @router.post("/lots/{lot_id}/test-certificates/import", status_code=201, response_model=list[schemas.CertificateOut],
-             dependencies=[BUYER], responses=REFUSED)
+             dependencies=[BUYER], responses=FILE_REFUSED)
 def import_certificates(lot_id: int, session: SessionDep,
                         file: Annotated[UploadFile, File(description="CSV or XLSX, one certificate per row")]):
     """Many certificates from one file; a file with any bad row stores nothing."""

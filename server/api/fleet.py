@@ -8,11 +8,11 @@ from fastapi import APIRouter, File, Form, Query, Response, UploadFile
 
 from server import schemas
 from server.auth import ANY_ROLE, PLANNER
+from server.api.responses import FILE_REFUSED
 from server.deps import SessionDep
 from server.services import fleet as service
 
 router = APIRouter(prefix="/fleet", tags=["fleet"])
-REFUSED = {422: {"model": schemas.ImportRefusedOut, "description": "The file has problems; nothing was stored."}}
 
 
 def _csv(text: str, name: str) -> Response:
@@ -28,7 +28,7 @@ def template():
 
 
 @router.post("/import", status_code=201, response_model=schemas.FleetImportOut, dependencies=[PLANNER],
-             responses=REFUSED)
+             responses=FILE_REFUSED)
 def import_fleet(
     session: SessionDep,
     file: Annotated[UploadFile, File(description="CSV or XLSX with the template's columns")],
@@ -50,7 +50,7 @@ def get_import(import_id: int, session: SessionDep):
 
 
 @router.post("/imports/{import_id}/commit", response_model=schemas.FleetImportOut, dependencies=[PLANNER],
-             responses=REFUSED)
+             responses=FILE_REFUSED)
 def commit_import(import_id: int, session: SessionDep):
     """Write the previewed file: every row, or none."""
     return service.import_out(service.commit_import(session, import_id))

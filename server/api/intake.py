@@ -8,6 +8,7 @@ from fastapi import APIRouter, File, Form, Query, Response, UploadFile
 
 from server import schemas
 from server.auth import ANY_ROLE, BUYER, PLANNER
+from server.api.responses import FILE_REFUSED
 from server.deps import SessionDep
 from server.exports import ranking_xlsx
 from server.services import compliance, offer_imports
@@ -17,7 +18,6 @@ from server.services.tenders import get_lot
 
 router = APIRouter()
 XLSX = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
-REFUSED = {422: {"model": schemas.ImportRefusedOut, "description": "The file cannot be read; nothing was stored."}}
 
 
 @router.get("/tenders/{tender_id}/offer-template.csv", dependencies=[ANY_ROLE], tags=["offer import"],
@@ -29,7 +29,7 @@ def offer_template(tender_id: int, session: SessionDep):
 
 
 @router.post("/tenders/{tender_id}/offer-imports", status_code=201, response_model=schemas.OfferImportOut,
-             dependencies=[BUYER], tags=["offer import"], responses=REFUSED)
+             dependencies=[BUYER], tags=["offer import"], responses=FILE_REFUSED)
 def stage_offer_import(tender_id: int, session: SessionDep,
                        file: Annotated[UploadFile, File(description="CSV or XLSX with the template's columns")],
                        rows_limit: Annotated[int | None, Query(ge=0)] = None):
@@ -72,7 +72,7 @@ def create_limit_table(data: schemas.LimitTableCreate, session: SessionDep):
 
 
 @router.post("/limit-tables/import", status_code=201, response_model=schemas.LimitTableOut, dependencies=[PLANNER],
-             tags=["compliance"], responses=REFUSED)
+             tags=["compliance"], responses=FILE_REFUSED)
 def import_limit_table(
     session: SessionDep,
     key: Annotated[str, Form()],

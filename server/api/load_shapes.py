@@ -8,11 +8,11 @@ from fastapi import APIRouter, Body, File, Form, UploadFile
 
 from server import schemas
 from server.auth import ANY_ROLE, PLANNER
+from server.api.responses import FILE_REFUSED
 from server.deps import SessionDep
 from server.services import load_shapes as service
 
 router = APIRouter(prefix="/load-shapes", tags=["load shapes"])
-REFUSED = {422: {"model": schemas.ImportRefusedOut, "description": "The file has problems; nothing was stored."}}
 
 
 @router.post("", status_code=201, response_model=schemas.LoadShapeOut, dependencies=[PLANNER])
@@ -22,7 +22,7 @@ def create_load_shape(session: SessionDep, data: schemas.LoadShapeCreate = Body(
 
 
 @router.post("/import", status_code=201, response_model=schemas.LoadShapeOut, dependencies=[PLANNER],
-             responses=REFUSED)
+             responses=FILE_REFUSED)
 def import_load_shape(
     session: SessionDep,
     name: Annotated[str, Form(max_length=120)],

@@ -15,7 +15,7 @@ from server.services import users as service
 router = APIRouter(tags=["people"])
 
 
-@router.post("/token", response_model=schemas.TokenOut, responses={401: {"model": schemas.ErrorOut}})
+@router.post("/token", response_model=schemas.TokenOut)
 def issue_token(form: Annotated[OAuth2PasswordRequestForm, Depends()], request: Request, session: SessionDep):
     """Exchange a user name and password (OAuth2 password form) for a bearer token."""
     settings = request.app.state.settings

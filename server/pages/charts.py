@@ -78,23 +78,31 @@ CURVE_COLOURS = (
     "#52606d", "#8a6bb1", "#2a7f8e", "#b08b00",
 )
 LIMIT_COLOUR = "#a3262a"
+LEGEND_WIDTH_PX = 200
 # Below a fifth of the rating every curve falls steeply to zero; the axis starts above that.
 _SCALE_FROM_PU = 0.2
 
 
-def _efficiency_axis(curves: schemas.EfficiencyCurvesOut) -> tuple[float, float]:
-    """The efficiency axis's ends [%]: the curves above a fifth of the rating and every limit,
-    with a tenth of the span to spare, in steps of 0.1 % and never above 100 %."""
+_STEPS_PCT = (0.05, 0.1, 0.2, 0.25, 0.5, 1.0, 2.0, 5.0)
+
+
+def _efficiency_axis(curves: schemas.EfficiencyCurvesOut) -> tuple[float, float, float]:
+    """The efficiency axis's ends and step [%]: the curves above a fifth of the rating and every
+    limit, with a tenth of the span to spare, on whole steps (at most eight) and never above 100 %."""
     values = [
         eta for curve in curves.curves
         for k, eta in zip(curves.loading_pu, curve.efficiency_pct, strict=True) if k >= _SCALE_FROM_PU
     ]
     values += [p["efficiency_pct"] for p in curves.reference_points if p.get("efficiency_pct") is not None]
     if not values:
-        return 95.0, 100.0
+        return 95.0, 100.0, 1.0
     low, high = min(values), max(values)
-    spare = max(0.1 * (high - low), 0.05)
-    return math.floor((low - spare) * 10) / 10, min(100.0, math.ceil((high + spare) * 10) / 10)
+    spare = max(0.1 * (high - low), 0.02)
+    low, high = low - spare, high + spare
+    step = next((s for s in _STEPS_PCT if (high - low) / s <= 8), _STEPS_PCT[-1])
+    bottom = round(math.floor(low / step) * step, 3)
+    top = round(min(100.0, math.ceil(high / step) * step), 3)
+    return bottom, top, step
 
 
 def efficiency_curves_chart(curves: schemas.EfficiencyCurvesOut) -> dict[str, Any]:
@@ -118,7 +126,8 @@ def efficiency_curves_chart(curves: schemas.EfficiencyCurvesOut) -> dict[str, An
             "itemStyle": {"color": colour},
             "lineStyle": {"width": 2},
             "emphasis": {"focus": "series"},
-            "data": [[x, round(eta, 3)] for x, eta in zip(x_pct, curve.efficiency_pct, strict=True)],
+            # No load gives no efficiency worth drawing (0 %); the line starts at the next loading.
+            "data": [[x, round(eta, 3)] for x, eta in zip(x_pct, curve.efficiency_pct, strict=True) if x > 0],
         }
         if curve.max_efficiency_loading_pu is not None and curve.max_efficiency_pct is not None:
             at_pct = round(100.0 * curve.max_efficiency_loading_pu, 1)
@@ -145,6 +154,7 @@ def efficiency_curves_chart(curves: schemas.EfficiencyCurvesOut) -> dict[str, An
                 "symbolSize": 13,
                 "itemStyle": {"color": LIMIT_COLOUR},
                 "label": {"show": True, "position": "bottom", "color": LIMIT_COLOUR,
+                          "backgroundColor": "rgba(255, 255, 255, 0.85)", "padding": [2, 4],
                           "formatter": f"minimum {value:g} % at {at_pct:g} %"},
                 "data": [[at_pct, value]],
             })
@@ -156,17 +166,22 @@ def efficiency_curves_chart(curves: schemas.EfficiencyCurvesOut) -> dict[str, An
                 "showSymbol": False,
                 "itemStyle": {"color": LIMIT_COLOUR},
                 "lineStyle": {"type": "dashed", "width": 1.5},
-                "endLabel": {"show": True, "color": LIMIT_COLOUR, "formatter": f"PEI {value:g} %"},
-                "data": [[x_pct[0], value], [x_pct[-1], value]],
+                "data": [
+                    [x_pct[0], value],
+                    {"value": [x_pct[-1], value],
+                     "label": {"show": True, "position": "top", "align": "right", "color": LIMIT_COLOUR,
+                               "formatter": f"minimum PEI {value:g} %"}},
+                ],
             })
-    low, high = _efficiency_axis(curves)
+    low, high, step = _efficiency_axis(curves)
     return {
         "animation": False,
         "textStyle": {"color": TEXT_COLOUR, "fontFamily": FONT, "fontSize": 13},
         "tooltip": {"trigger": "item"},
-        "legend": {"type": "scroll", "top": 0, "left": 0, "right": 0, "itemWidth": 18, "itemHeight": 10,
-                   "textStyle": {"fontSize": 13}},
-        "grid": {"left": 64, "right": 72, "top": 48, "bottom": 52},
+        # Beside the plot, one name a line: a row above it would wrap over the plot with many offers.
+        "legend": {"type": "scroll", "orient": "vertical", "right": 0, "top": 16, "bottom": 16, "itemWidth": 18,
+                   "itemHeight": 10, "textStyle": {"fontSize": 13, "width": LEGEND_WIDTH_PX, "overflow": "truncate"}},
+        "grid": {"left": 64, "right": LEGEND_WIDTH_PX + 56, "top": 20, "bottom": 52},
         "xAxis": {
             "type": "value",
             "min": 0,
@@ -181,6 +196,7 @@ def efficiency_curves_chart(curves: schemas.EfficiencyCurvesOut) -> dict[str, An
             "type": "value",
             "min": low,
             "max": high,
+            "interval": step,
             "name": "Efficiency (%)",
             "nameLocation": "middle",
             "nameGap": 48,

@@ -17,7 +17,7 @@ from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
 from server.errors import Conflict, ImportRefused, InvalidField
 from server.pages import intake_views, views
-from server.pages.forms import FormDep, FormValues, field_errors, plain_message
+from server.pages.forms import FormDep, FormListsDep, FormValues, field_errors, plain_message
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
 from server.services import offer_imports, pages_intake, tenders
 
@@ -81,6 +81,21 @@ PREVIEW_COLUMNS = (
 )
 
 
+NUMERIC_COLUMNS = {"unit_price", "no_load_loss_w", "load_loss_w", "aux_loss_w", "impedance_pct",
+                   "no_load_current_pct", "delivery_weeks"}
+
+
+def _as_read(name: str, value: Any) -> Any:
+    """A refused row keeps its cells as the file had them: a number written as text is shown
+    as a number like the others, anything else exactly as written."""
+    if name in NUMERIC_COLUMNS and isinstance(value, str):
+        try:
+            return float(value)
+        except ValueError:
+            return value
+    return value
+
+
 def preview_cells(row: schemas.ImportRowOut) -> tuple[list[Cell], list[str], list[str]]:
     """A preview row's cells, each with the errors and warnings about its column; and the
     messages about no column shown (they go beside the row number)."""
@@ -89,7 +104,7 @@ def preview_cells(row: schemas.ImportRowOut) -> tuple[list[Cell], list[str], lis
     for name, _ in PREVIEW_COLUMNS:
         value = row.lot if name == "lot" else row.values.get(name, row.bidder if name == "bidder" else None)
         cells.append(Cell(
-            name, value,
+            name, _as_read(name, value),
             [e.message for e in row.errors if e.column == name],
             [w.message for w in row.warnings if w.column == name],
         ))
@@ -108,6 +123,7 @@ def preview_view(session, import_id: int, problems_only: bool) -> dict[str, Any]
         "limit": intake_views.PREVIEW_ROWS,
         "tender": tender,
         "columns": PREVIEW_COLUMNS,
+        "numeric": NUMERIC_COLUMNS,
         "cells": preview_cells,
         "commit_error": None,
     }
@@ -216,6 +232,26 @@ def save_currencies(request: Request, tender_id: int, session: SessionDep, form:
 
 
 # --- the lot page's compliance and efficiency sections ---------------------------------------
+
+@router.post("/lots/{lot_id:int}/limit-tables", dependencies=[BUYER])
+def save_lot_tables(request: Request, lot_id: int, session: SessionDep, form: FormDep, lists: FormListsDep):
+    """The limit tables a lot names, saved against the lot's version; the whole page follows,
+    since the ranking, the compliance and the chart all change."""
+    try:
+        patch = schemas.LotPatch.model_validate(
+            {"version": form.get("version", ""), "limit_tables": lists.get("limit_tables", [])}
+        )
+        tenders.patch_lot(session, lot_id, patch)
+    except ValidationError as exc:
+        message, status = "; ".join(f"{k}: {v}" for k, v in field_errors(exc).items()), 422
+    except (InvalidField, Conflict) as exc:
+        views.discard(session)
+        message, status = exc.message, exc.status_code
+    else:
+        return see_other(request, f"/lots/{lot_id}#compliance")
+    context = views.lot_detail(session, lot_id) | {"tables_error": message}
+    return render(request, "lots/detail.html", context, status)
+
 
 @router.get("/lots/{lot_id:int}/compliance", dependencies=[ANY_ROLE])
 def lot_compliance(request: Request, lot_id: int, session: SessionDep):

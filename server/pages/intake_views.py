@@ -11,9 +11,10 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
+from domain.limits import tables_for
 from server import schemas
 from server.pages.charts import efficiency_curves_chart
-from server.services import compliance, pages_intake, ranking, tenders
+from server.services import compliance, locks, pages_intake, ranking, tenders
 from server.services.efficiency_curves import lot_efficiency_curves
 
 # The preview shows this many rows of an import; the counts always cover every row.
@@ -86,21 +87,36 @@ def excluded_view(full: schemas.RankingOut, show_excluded: bool) -> dict[str, An
 
 # --- compliance and efficiency curves on the lot page ---------------------------------------
 
-def lot_rules(session: Session, lot: schemas.LotOut) -> list[TableChoice]:
-    """The limit tables a lot names, with their names and status."""
-    choices = {c.key: c for c in table_choices(compliance.list_tables(session))}
-    return [choices[key] for key in lot.limit_tables if key in choices]
+@dataclass(frozen=True)
+class LotRule:
+    """A limit table key a lot names, and the names of its tables that cover the lot's unit."""
+
+    choice: TableChoice
+    applies: tuple[str, ...]
 
 
 def compliance_view(session: Session, lot_id: int) -> dict[str, Any]:
-    """Every offer's findings and plausibility warnings, and the rules the lot names."""
+    """Every offer's findings and plausibility warnings, the rules the lot names, and the form
+    that changes which limit tables it names."""
     lot = tenders.get_lot(session, lot_id)
     results = compliance.lot_compliance(session, lot)
+    choices = table_choices(compliance.list_tables(session))
+    by_key = {c.key: c for c in choices}
+    tables = compliance.all_tables(session)
+    rules = [
+        LotRule(by_key[key], tuple(t.name for t in tables_for(
+            key, lot.phases, lot.insulation, lot.rating_kva, lot.lv_kv, lot.hv_kv, tables)))
+        for key in lot.limit_tables or [] if key in by_key
+    ]
     return {
         "compliance": results,
         "compliance_lot_id": lot.id,
-        "compliance_rules": lot_rules(session, tenders.lot_out(lot)),
+        "compliance_rules": rules,
         "compliant_count": sum(1 for r in results if r.compliant),
+        "compliance_locked": locks.active_record(session, lot.id) is not None,
+        "table_choices": choices,
+        "tables_form": {"version": lot.version, "limit_tables": list(lot.limit_tables or [])},
+        "tables_error": None,
     }
 
 

@@ -43,6 +43,8 @@ def _list_page(session, **parts: Any) -> dict[str, Any]:
         "daily": daily,
         "daily_errors": errors,
         "cell_problems": shape_form.cell_problems(errors, daily),
+        "month_choices": shape_form.MONTH_CHOICES,
+        "seasons": range(shape_form.SEASONS),
         "import_form": parts.pop("import_form", None) or {"unit": "kva", "fill_gaps_up_to_hours": "0"},
         "import_errors": parts.pop("import_errors", {}),
         "refusal": parts.pop("refusal", None),

@@ -16,7 +16,6 @@ from server.tabular import rows_text
 SEASONS = 2
 DAY_TYPES = ("weekday", "weekend")
 MONTH_CHOICES = [(str(m), MONTH_NAMES[m - 1]) for m in range(1, 13)]
-UNIT_CHOICES = [("kva", "kVA"), ("kw", "kW (taken as kVA; a power_factor column converts it)"), ("pu", "per unit")]
 
 # Invented typical days of a mixed residential feeder, in pu of the winter evening peak:
 # a starting point to overwrite, not data about any real network.
@@ -132,10 +131,6 @@ def cell_problems(errors: dict[str, str], typed: dict[str, Any]) -> list[CellPro
                 if box in errors:
                     problems.append(CellProblem(box, f"{season}, {day_type}, {HOUR_LABELS[hour]}", errors[box]))
     return problems
-
-
-def is_cell(name: str) -> bool:
-    return re.fullmatch(r"s\d+_(weekday|weekend)_\d+", name) is not None
 
 
 @dataclass(frozen=True)

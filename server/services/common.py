@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any, TypeVar
 
 from pydantic import BaseModel
@@ -41,13 +42,19 @@ def apply_patch(obj: Any, patch: BaseModel, required: set[str], skip: set[str] =
     return changes
 
 
-def commit(session: Session, label: str, unique_field: str | None = None) -> None:
-    """Commit; a concurrent edit becomes 409, a unique clash 422 naming the field."""
+def commit(session: Session, label: str, unique_field: str | None = None,
+           current: Callable[[], dict] | None = None) -> None:
+    """Commit; a concurrent edit becomes 409 (with the stored values when ``current`` can
+    read them), a unique clash 422 naming the field."""
     try:
         session.commit()
     except StaleDataError as exc:
         session.rollback()
-        raise Conflict(f"This {label} was changed by someone else while you saved; nothing was saved.") from exc
+        raise Conflict(
+            f"This {label} was changed by someone else while you saved; nothing was saved. "
+            "Reload to see the current values.",
+            current=current() if current else None,
+        ) from exc
     except IntegrityError as exc:
         session.rollback()
         if unique_field:

@@ -57,7 +57,7 @@ def patch_offer(session: Session, offer_id: int, patch: schemas.OfferPatch) -> O
     if "currency" in patch.model_fields_set:
         _check_currency(offer.lot.tender, patch.currency)
     apply_patch(offer, patch, _REQUIRED)
-    commit(session, "offer")
+    commit(session, "offer", current=lambda: offer_out(get_offer(session, offer_id)).model_dump(mode="json"))
     return offer
 
 

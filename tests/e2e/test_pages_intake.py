@@ -390,7 +390,7 @@ def test_the_curves_chart_holds_one_series_per_offer_and_the_limit(page_client):
     options = _chart(_section(page, "curves"), "chart--curves")
     offers = [s for s in options["series"] if s["id"].startswith("offer-")]
     assert [s["name"] for s in offers] == ["Bidder 0", "Bidder 1", "Bidder 2"]
-    assert all(s["type"] == "line" and s["data"][0][0] == 0 and s["data"][-1][0] == 150 for s in offers)
+    assert all(s["type"] == "line" and s["data"][0][0] == 5 and s["data"][-1][0] == 150 for s in offers)
     peak = offers[0]["markPoint"]["data"][0]["coord"]
     assert peak[0] == pytest.approx(100 * (350 / 4000) ** 0.5, abs=0.05)
     (limit,) = [s for s in options["series"] if s["id"].startswith("limit-")]
@@ -410,7 +410,8 @@ def test_the_curves_chart_draws_a_peak_efficiency_index_as_a_level():
     options = efficiency_curves_chart(curves)
     assert json.loads(json.dumps(options)) == options
     level = options["series"][1]
-    assert level["id"] == "limit-0" and level["data"] == [[0.0, 99.48], [150.0, 99.48]]
+    assert level["id"] == "limit-0" and level["data"][0] == [0.0, 99.48] and level["data"][1]["value"] == [150.0, 99.48]
+    assert level["data"][1]["label"]["formatter"] == "minimum PEI 99.48 %"
     assert level["lineStyle"]["type"] == "dashed"
     assert options["yAxis"]["min"] < 99.2 and options["yAxis"]["max"] <= 100
 
@@ -472,3 +473,21 @@ def test_the_rates_box_reads_one_rate_a_line():
         parse_rates("USD 1\nusd 2")
     with pytest.raises(RatesText, match="line 1: write it as a code and a rate"):
         parse_rates("dollars are 0.9")
+
+
+def test_a_buyer_changes_the_limit_tables_of_a_lot_on_its_page(page_client):
+    csrf = log_in(page_client)
+    _, lot_id = _capped_lot(page_client)
+    page = page_client.get(f"/lots/{lot_id}").text
+    section = _section(page, "compliance")
+    assert f'action="/lots/{lot_id}/limit-tables"' in section and "this lot names no limit table" in _text(section)
+    saved = page_client.post(f"/lots/{lot_id}/limit-tables", follow_redirects=False,
+                             data={"csrf_token": csrf, "version": "1", "limit_tables": ["eu-tier-1"]})
+    assert saved.status_code == 303 and saved.headers["location"] == f"/lots/{lot_id}#compliance"
+    assert page_client.get(f"/api/v1/lots/{lot_id}", headers=API).json()["limit_tables"] == ["eu-tier-1"]
+    section = _section(page_client.get(f"/lots/{lot_id}").text, "compliance")
+    assert 'name="limit_tables" value="eu-tier-1" checked' in section
+    assert "EU Tier 1 maximum losses, liquid-immersed" in section
+    stale = page_client.post(f"/lots/{lot_id}/limit-tables", data={"csrf_token": csrf, "version": "1"})
+    assert stale.status_code == 409 and "The limit tables were not changed" in stale.text
+    assert page_client.get(f"/api/v1/lots/{lot_id}", headers=API).json()["limit_tables"] == ["eu-tier-1"]
