@@ -493,6 +493,7 @@ class EvaluationRecordOut(Out):
     reopen_reason: str | None
     inputs: dict[str, Any]
     ranking: list[dict[str, Any]]
+    robustness: dict[str, Any] | None = None
 
 
 class VerificationOut(BaseModel):
@@ -1085,3 +1086,128 @@ class TypicalLossesIn(Strict):
     source: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=300)]
     rows: Annotated[list[list[float]], Field(min_length=1, max_length=5000)] = Field(
         description="Rows of [insulation code (0 liquid, 1 dry), from_year, to_year, rating_kva, no_load_loss_w, load_loss_w].")
+
+
+# --- robustness of a ranking ------------------------------------------------------------------
+
+SensitivityInput = Literal[
+    "energy_price_per_kwh", "energy_escalation_pct", "capacity_cost_per_kw_year", "discount_rate_pct", "years",
+    "peak_load_pu", "load_growth_pct", "loss_factor", "responsibility_factor", "cooling_hours_per_year",
+]
+
+
+class BreakEvenRowOut(BaseModel):
+    offer_id: int
+    bidder: str
+    margin_now: float = Field(description="TOC of this rival minus the leader's, per unit.")
+    price_gap: float
+    no_load_loss_gap_w: float
+    load_loss_gap_w: float
+    aux_loss_gap_w: float
+    load_rate_per_kw: float | None = Field(description="B at which they tie at the current A; null: never.")
+    load_rate_side: str | None
+    no_load_rate_per_kw: float | None = Field(description="A at which they tie at the current B; null: never.")
+    no_load_rate_side: str | None
+    sentences: list[str]
+
+
+class BreakEvenOut(BaseModel):
+    lot_id: int
+    currency: str
+    leader_offer_id: int | None
+    leader_bidder: str | None
+    no_load_rate_per_kw: float
+    load_rate_per_kw: float
+    aux_rate_per_kw: float
+    rows: list[BreakEvenRowOut]
+
+
+class RateMapIn(Strict):
+    no_load_rate_min: Annotated[float, Field(ge=0, le=1e7)] | None = None
+    no_load_rate_max: Annotated[float, Field(ge=0, le=1e7)] | None = None
+    load_rate_min: Annotated[float, Field(ge=0, le=1e7)] | None = None
+    load_rate_max: Annotated[float, Field(ge=0, le=1e7)] | None = None
+    steps: Annotated[int, Field(ge=5, le=400)] = 120
+
+
+class RateMapOut(BaseModel):
+    lot_id: int
+    no_load_rates: list[float]
+    load_rates: list[float]
+    winners: list[list[int]] = Field(description="Winning offer id for each load rate (row) and no-load rate (column).")
+    offers: dict[int, str]
+    tie_lines: list[dict[str, Any]]
+    current: dict[str, float]
+    leader_offer_id: int | None
+
+
+class TornadoIn(Strict):
+    ranges: dict[SensitivityInput, Annotated[list[float], Field(min_length=2, max_length=2)]] = Field(
+        default_factory=dict, description="Low and high value per input; inputs left out get ±20 % (±2 points for rates)."
+    )
+
+
+class TornadoRowOut(BaseModel):
+    input: str
+    base_value: float
+    low_value: float
+    high_value: float
+    margin_base: float
+    margin_low: float
+    margin_high: float
+    swing: float
+    leader_low_offer_id: int
+    leader_high_offer_id: int
+    leader_changes: bool
+
+
+class TornadoOut(BaseModel):
+    lot_id: int
+    leader_offer_id: int
+    runner_up_offer_id: int | None
+    rows: list[TornadoRowOut]
+
+
+class DistributionIn(Strict):
+    dist: Literal["fixed", "uniform", "triangular", "normal"]
+    low: float | None = None
+    mode: float | None = None
+    high: float | None = None
+    mean: float | None = None
+    sd: Annotated[float, Field(ge=0)] | None = None
+
+
+class MonteCarloIn(Strict):
+    draws: Annotated[int, Field(ge=1, le=1_000_000)] = 10_000
+    seed: Annotated[int, Field(ge=0, le=2**63 - 1)] = 1
+    inputs: dict[SensitivityInput, DistributionIn] = Field(default_factory=dict)
+
+
+class MonteCarloRowOut(BaseModel):
+    offer_id: int
+    bidder: str
+    win_probability: float
+    toc_p5: float
+    toc_p50: float
+    toc_p95: float
+    toc_mean: float
+    expected_regret: float
+
+
+class MonteCarloOut(BaseModel):
+    lot_id: int
+    draws: int
+    seed: int
+    leader_offer_id: int
+    rows: list[MonteCarloRowOut]
+
+
+class MonteCarloRunOut(BaseModel):
+    id: int
+    lot_id: int
+    status: str
+    progress: float
+    message: str
+    created_by: str
+    created_at: datetime
+    result: MonteCarloOut | None

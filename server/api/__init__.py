@@ -2,7 +2,7 @@
 
 from fastapi import APIRouter
 
-from server.api import cost_bases, factory_tests, fleet, intake, load_shapes, offers, people, records, tenders
+from server.api import cost_bases, factory_tests, fleet, intake, load_shapes, offers, people, records, robustness, tenders
 from server.api.responses import ERRORS
 
 router = APIRouter(prefix="/api/v1", responses=ERRORS)
@@ -15,3 +15,4 @@ router.include_router(records.router)
 router.include_router(intake.router)
 router.include_router(factory_tests.router)
 router.include_router(fleet.router)
+router.include_router(robustness.router)

@@ -14,6 +14,7 @@ from server.auth import Requires
 from server.errors import ServiceError
 from server.pages import audit, awards, cost_bases, intake, limit_tables, lots, people, session, tenders
 from server.pages import load_shapes, loading, revisions
+from server.pages import certificates, fleet
 from server.pages.templating import is_htmx, render
 
 router = APIRouter(include_in_schema=False)
@@ -29,6 +30,8 @@ router.include_router(limit_tables.router)
 router.include_router(load_shapes.router)
 router.include_router(loading.router)
 router.include_router(revisions.router)
+router.include_router(certificates.router)
+router.include_router(fleet.router)
 
 _TITLES = {
     403: "Not allowed", 404: "Not found", 405: "Not found", 409: "Cannot change this now", 422: "Cannot accept this",

@@ -203,9 +203,9 @@ def analysis_data(form: FormValues) -> tuple[dict[str, Any], list[int]]:
     The guarantee is sent only when both losses are given (it is optional as a whole).
     """
     data: dict[str, Any] = {name: form.get(name, "") for name in ANALYSIS_TOP}
-    for name in ("frequency_hz", "reference_temp_c", "phases"):
+    for name in set(ANALYSIS_TOP) - {"rating_kva", "hv_v", "lv_v"}:
         if data[name] == "":
-            data.pop(name)
+            data.pop(name)  # the schema's default
     if data.get("phases", "").isdigit():
         data["phases"] = int(data["phases"])
     data |= {part: _readings(form, part) for part in READING_BOXES}

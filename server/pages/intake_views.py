@@ -61,12 +61,6 @@ def lot_form_extras(session: Session) -> dict[str, Any]:
     return {"table_choices": table_choices(compliance.list_tables(session))}
 
 
-def chosen_tables(form: dict[str, Any]) -> list[str]:
-    """The ticked limit tables of a lot form (one box ticked arrives as text, several as a list)."""
-    chosen = form.get("limit_tables") or []
-    return [chosen] if isinstance(chosen, str) else list(chosen)
-
-
 # --- the ranking's non-compliant offers -----------------------------------------------------
 
 def excluded_view(full: schemas.RankingOut, show_excluded: bool) -> dict[str, Any]:

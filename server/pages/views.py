@@ -14,7 +14,7 @@ from sqlalchemy.orm import Session
 from server import schemas
 from server.errors import Conflict, InvalidField
 from server.pages.basis_form import chosen_method, input_label, method_boxes, price_path_coverage
-from server.pages import intake_views, planning_views
+from server.pages import certificate_views, intake_views, planning_views
 from server.pages.charts import toc_breakdown_chart
 from server.pages.forms import field_errors, full_inputs
 from server.pages.templating import input_value
@@ -112,6 +112,7 @@ def lot_detail(session: Session, lot_id: int, include_non_compliant: bool = Fals
         **intake_views.compliance_view(session, lot_id),
         **intake_views.curves_view(session, lot_id),
         **planning_views.lot_loading(session),
+        **certificate_views.lot_section(session, lot_id),
     }
 
 

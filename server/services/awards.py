@@ -18,6 +18,7 @@ from server.services.compliance import all_tables, offer_findings, reason
 from server.services.loading import lot_rates
 from server.services.locks import active_record, ensure_open
 from server.services.ranking import price_in_tender_currency
+from server.services.robustness import award_robustness
 from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
 from server.storage import audit
@@ -127,6 +128,7 @@ def award_lot(session: Session, lot_id: int, note: str | None = None) -> Evaluat
     )
     session.add(record)
     session.flush()
+    record.robustness = award_robustness(session, lot.id)
     audit.record(session, "award", "lot", lot.id,
                  f"awarded lot '{lot.name}' to {ranking[0]['bidder']} (record {record.id})"
                  + (f": {note}" if note else ""),

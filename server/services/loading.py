@@ -13,7 +13,15 @@ def revision_rates(revision: CostBasisRevision) -> CapitalisationRates:
 
 
 def lot_rates(lot: Lot, revision: CostBasisRevision | None = None) -> tuple[CapitalisationRates, schemas.LoadingOut]:
-    """A, B, C for ``lot`` under ``revision`` (default: its tender's), and the loading used.
+    """A, B, C for ``lot`` under ``revision`` (default: its tender's), and the loading used."""
+    inputs, loading, recomputed = lot_inputs(lot, revision)
+    revision = revision or lot.tender.cost_basis_revision
+    return (rates_for(inputs) if recomputed else revision_rates(revision)), loading
+
+
+def lot_inputs(lot: Lot, revision: CostBasisRevision | None = None):
+    """The cost basis inputs that price ``lot``, the loading used, and whether they differ
+    from the revision's own (so its stored rates no longer apply).
 
     Where the lot sets a load shape, a peak loading or a growth, those replace the basis's
     loss factor, peak loading and growth, and the rates are derived again; the capacity
@@ -31,13 +39,13 @@ def lot_rates(lot: Lot, revision: CostBasisRevision | None = None) -> tuple[Capi
         note=f"Loading from cost basis '{revision.cost_basis.name}' revision {revision.revision}.",
     )
     if not own:
-        return revision_rates(revision), basis_loading
+        return inputs, basis_loading, False
     if revision.method == "direct":
         basis_loading.note = (
             "This lot sets its own loading, but the cost basis gives its rates directly, so there is "
             "no loading to replace: the published rates apply."
         )
-        return revision_rates(revision), basis_loading
+        return inputs, basis_loading, False
     update: dict = {}
     parts = []
     shape = lot.load_shape
@@ -64,4 +72,4 @@ def lot_rates(lot: Lot, revision: CostBasisRevision | None = None) -> tuple[Capi
         note="This lot's own loading: " + "; ".join(parts) + f"; other inputs from '{revision.cost_basis.name}' "
         f"revision {revision.revision}.",
     )
-    return rates_for(lot_inputs), loading
+    return lot_inputs, loading, True

@@ -28,6 +28,17 @@ def price_in_tender_currency(offer: Offer, tender: Tender) -> float:
     return offer.unit_price * rate
 
 
+def rankable_offers(session: Session, lot: Lot) -> list[OfferLosses]:
+    """The lot's compliant offers, priced in the tender's currency: what a ranking ranks."""
+    tender = lot.tender
+    tables = all_tables(session)
+    return [
+        OfferLosses(o.id, o.bidder, price_in_tender_currency(o, tender), o.no_load_loss_w, o.load_loss_w, o.aux_loss_w)
+        for o in session.scalars(select(Offer).where(Offer.lot_id == lot.id)).all()
+        if is_compliant(offer_findings(lot, o, tables))
+    ]
+
+
 def lot_ranking(session: Session, lot_id: int, include_non_compliant: bool = False) -> schemas.RankingOut:
     """The lot's ranking under its tender's cost basis revision."""
     lot = get_lot(session, lot_id)

@@ -251,6 +251,8 @@ class EvaluationRecord(Base):
     reopened_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
     reopened_by: Mapped[str | None] = mapped_column(String(64))
     reopen_reason: Mapped[str | None] = mapped_column(Text)
+    # Break-even sentences and a Monte Carlo at award time; outside the hashed inputs.
+    robustness: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     lot: Mapped[Lot] = relationship()
 
 
@@ -372,3 +374,21 @@ class AppDocument(Base):
     version: Mapped[int] = mapped_column(Integer, nullable=False, default=1)
     updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
     updated_by: Mapped[str] = mapped_column(String(64), nullable=False, default="system")
+
+
+class MonteCarloRun(Base):
+    """A Monte Carlo run of a lot's ranking, run in the background; progress and result kept here
+    so any worker can report them and a cancel request reaches the run."""
+
+    __tablename__ = "monte_carlo_runs"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="CASCADE"), nullable=False, index=True)
+    created_by: Mapped[str] = mapped_column(String(64), nullable=False)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    status: Mapped[str] = mapped_column(String(16), nullable=False, default="running")
+    progress: Mapped[float] = mapped_column(Float, nullable=False, default=0.0)
+    cancel_requested: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    request: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    result: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    message: Mapped[str] = mapped_column(Text, nullable=False, default="")

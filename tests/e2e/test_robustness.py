@@ -1,0 +1,152 @@
+"""How sure the ranking is: break-even, rate map, tornado and Monte Carlo through the API."""
+
+from __future__ import annotations
+
+import time
+
+import pytest
+
+from tests import factories as f
+
+
+def _lot(client, basis=None):
+    basis_id = client.post("/api/v1/cost-bases", json=basis or f.direct_basis()).json()["id"]
+    reference = f"T-{basis_id}"
+    lot_id = client.post("/api/v1/tenders", json=f.tender(basis_id, reference=reference)).json()["lots"][0]["id"]
+    offers = [("Lean", 12000, 300, 4000), ("Lossy", 10000, 650, 4200), ("Middle", 11000, 450, 4300)]
+    ids = {}
+    for bidder, price, p0, pk in offers:
+        ids[bidder] = client.post(f"/api/v1/lots/{lot_id}/offers",
+                                  json=f.offer(bidder=bidder, unit_price=price, no_load_loss_w=p0, load_loss_w=pk)).json()["id"]
+    return lot_id, ids
+
+
+def _ranking_leader(client, lot_id, basis_id, a, b):
+    client.patch(f"/api/v1/cost-bases/{basis_id}", json={"version": client.get(f"/api/v1/cost-bases/{basis_id}").json()["version"],
+                                                         "no_load_rate_per_kw": a, "load_rate_per_kw": b})
+    tender_id = client.get(f"/api/v1/lots/{lot_id}").json()["tender_id"]
+    tender = client.get(f"/api/v1/tenders/{tender_id}").json()
+    client.patch(f"/api/v1/tenders/{tender_id}", json={"version": tender["version"], "cost_basis_id": basis_id})
+    return client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"][0]["offer_id"]
+
+
+def test_break_even_rates_checked_by_reranking_either_side(client):
+    lot_id, ids = _lot(client)
+    body = client.get(f"/api/v1/lots/{lot_id}/break-even").json()
+    basis_id = client.get("/api/v1/cost-bases").json()[0]["id"]
+    leader = body["leader_offer_id"]
+    assert leader == client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"][0]["offer_id"]
+    a_now = body["no_load_rate_per_kw"]
+    checked = 0
+    for row in body["rows"]:
+        tie = row["load_rate_per_kw"]
+        if tie is None:
+            continue
+        eps = max(tie * 1e-6, 1e-3)
+        inside = tie - eps if row["load_rate_side"] == "below" else tie + eps
+        outside = tie + eps if row["load_rate_side"] == "below" else tie - eps
+        if outside < 0:
+            continue
+        # Just inside the tie the leader beats this rival; just outside, the rival beats the leader.
+        ranking_inside = _toc_order(client, lot_id, basis_id, a_now, inside)
+        ranking_outside = _toc_order(client, lot_id, basis_id, a_now, outside)
+        assert ranking_inside.index(leader) < ranking_inside.index(row["offer_id"])
+        assert ranking_outside.index(row["offer_id"]) < ranking_outside.index(leader)
+        assert any("load rate" in s for s in row["sentences"])
+        checked += 1
+    assert checked >= 1
+
+
+def _toc_order(client, lot_id, basis_id, a, b):
+    _ranking_leader(client, lot_id, basis_id, a, b)
+    return [r["offer_id"] for r in client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"]]
+
+
+def test_rate_map_winner_at_the_basis_is_the_leader(client):
+    lot_id, ids = _lot(client)
+    body = client.post(f"/api/v1/lots/{lot_id}/rate-map", json={"steps": 41}).json()
+    a, b = body["current"]["no_load_rate_per_kw"], body["current"]["load_rate_per_kw"]
+    j = min(range(len(body["no_load_rates"])), key=lambda k: abs(body["no_load_rates"][k] - a))
+    i = min(range(len(body["load_rates"])), key=lambda k: abs(body["load_rates"][k] - b))
+    leader = client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"][0]["offer_id"]
+    assert body["leader_offer_id"] == leader
+    assert len(body["winners"]) == 41 and len(body["winners"][0]) == 41
+    # Every cell's winner agrees with a direct TOC computation at that point.
+    offers = {o["id"]: o for o in client.get(f"/api/v1/lots/{lot_id}/offers").json()}
+    for (row, col) in [(0, 0), (i, j), (40, 40), (10, 30), (30, 5)]:
+        aa, bb = body["no_load_rates"][col], body["load_rates"][row]
+        toc = {k: o["unit_price"] + aa * o["no_load_loss_w"] / 1000 + bb * o["load_loss_w"] / 1000 + 800 * o["aux_loss_w"] / 1000
+               for k, o in offers.items()}
+        assert body["winners"][row][col] == min(toc, key=toc.get)
+
+
+def test_tornado_needs_a_present_worth_basis_and_sorts_by_swing(client):
+    lot_id, _ = _lot(client)
+    assert client.post(f"/api/v1/lots/{lot_id}/tornado", json={}).status_code == 422
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    body = client.post(f"/api/v1/lots/{lot_id}/tornado",
+                       json={"ranges": {"discount_rate_pct": [4, 9], "years": [20, 40]}}).json()
+    swings = [r["swing"] for r in body["rows"]]
+    assert swings == sorted(swings, reverse=True)
+    discount = next(r for r in body["rows"] if r["input"] == "discount_rate_pct")
+    assert discount["low_value"] == pytest.approx(4) and discount["high_value"] == pytest.approx(9)
+    assert {r["input"] for r in body["rows"]} >= {"energy_price_per_kwh", "loss_factor", "years"}
+
+
+def test_monte_carlo_fixed_inputs_give_the_plain_ranking(client):
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    ranking = client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"]
+    body = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json={"draws": 500, "seed": 3, "inputs": {
+        "energy_price_per_kwh": {"dist": "fixed"}}}).json()
+    by_id = {r["offer_id"]: r for r in body["rows"]}
+    assert by_id[ranking[0]["offer_id"]]["win_probability"] == 1.0
+    for row in ranking:
+        mc = by_id[row["offer_id"]]
+        assert mc["toc_p5"] == pytest.approx(row["toc_per_unit"]) and mc["toc_p95"] == pytest.approx(row["toc_per_unit"])
+
+
+def test_monte_carlo_is_reproducible_and_sums_to_one(client):
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    request = {"draws": 2000, "seed": 11, "inputs": {
+        "energy_price_per_kwh": {"dist": "triangular", "low": 0.04, "mode": 0.08, "high": 0.2},
+        "discount_rate_pct": {"dist": "normal", "mean": 6, "sd": 2, "low": 1, "high": 12},
+        "load_growth_pct": {"dist": "uniform", "low": 0, "high": 3}}}
+    first = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json=request).json()
+    again = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json=request).json()
+    assert first == again
+    assert sum(r["win_probability"] for r in first["rows"]) == pytest.approx(1.0)
+    assert all(r["expected_regret"] >= 0 and r["toc_p5"] <= r["toc_p50"] <= r["toc_p95"] for r in first["rows"])
+    other = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json={**request, "seed": 12}).json()
+    assert other != first
+
+
+def test_background_run_reports_progress_and_result(client):
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    run = client.post(f"/api/v1/lots/{lot_id}/monte-carlo-runs", json={"draws": 20000, "seed": 5}).json()
+    assert run["status"] == "running"
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        state = client.get(f"/api/v1/monte-carlo-runs/{run['id']}").json()
+        if state["status"] != "running":
+            break
+        time.sleep(0.1)
+    assert state["status"] == "done" and state["progress"] == 1.0 and len(state["result"]["rows"]) == 3
+    assert client.post(f"/api/v1/monte-carlo-runs/{run['id']}/cancel").json()["status"] == "done"
+
+
+def test_award_keeps_a_robustness_section(client):
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    robustness = record["robustness"]
+    assert robustness["break_even"] and robustness["monte_carlo"]["draws"] == 2000
+    assert 0 <= robustness["monte_carlo"]["leader_win_probability"] <= 1
+    assert client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()["verified"]
+
+
+def test_award_report_shows_the_robustness_section(client):
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    page = client.get(f"/evaluation-records/{record['id']}/report")
+    assert page.status_code == 200
+    assert "How sure is this ranking" in page.text and "Monte Carlo at award" in page.text
+    assert "2,000 draws" in page.text
