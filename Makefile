@@ -4,7 +4,7 @@ VENV := .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed-stamp
 
-.PHONY: install demo serve test test-fast bench migrate clean
+.PHONY: install demo serve test test-fast bench loadtest migrate clean
 
 $(STAMP): pyproject.toml
 	@$(PYTHON) -c 'import sys; sys.exit(0 if sys.version_info >= (3, 11) else "LossLedger needs Python 3.11 or newer")'
@@ -35,6 +35,10 @@ bench: $(STAMP)
 	$(PY) -m bench.bench_fleet
 	$(PY) -m bench.bench_fleet_import
 	$(PY) -m bench.bench_monte_carlo
+
+# Several workers on PostgreSQL under wrk (Debian packages postgresql and wrk).
+loadtest: $(STAMP)
+	$(PY) -m bench.loadtest
 
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis

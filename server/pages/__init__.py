@@ -15,6 +15,7 @@ from server.errors import ServiceError
 from server.pages import audit, awards, cost_bases, intake, limit_tables, lots, people, session, tenders
 from server.pages import load_shapes, loading, revisions
 from server.pages import certificates, fleet
+from server.pages import robustness
 from server.pages.templating import is_htmx, render
 
 router = APIRouter(include_in_schema=False)
@@ -32,6 +33,7 @@ router.include_router(loading.router)
 router.include_router(revisions.router)
 router.include_router(certificates.router)
 router.include_router(fleet.router)
+router.include_router(robustness.router)
 
 _TITLES = {
     403: "Not allowed", 404: "Not found", 405: "Not found", 409: "Cannot change this now", 422: "Cannot accept this",

@@ -131,7 +131,7 @@ def save_typical_losses(request: Request, session: SessionDep, form: FormDep):
         errors = fleet_views.typical_errors(exc, lines)
     except InvalidField as exc:
         views.discard(session)
-        errors = {exc.field: exc.detail}
+        errors = fleet_views.typical_service_error(exc.detail, lines)
     else:
         return see_other(request, "/fleet/typical-losses?saved=1")
     context = fleet_views.typical_page(session, edit_form=form, edit_errors=errors)

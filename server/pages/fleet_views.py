@@ -229,6 +229,18 @@ def typical_errors(exc: ValidationError, lines: list[int]) -> dict[str, str]:
     return {k: v for k, v in boxes.items() if k != "rows"} | errors
 
 
+_ROW_PROBLEM = re.compile(r"^rows\[(\d+)\]\.?(\w*):?\s*(.*)$", re.S)
+
+
+def typical_service_error(detail: str, lines: list[int]) -> dict[str, str]:
+    """The table's refusal of a row ("rows[3].no_load_loss_w: must be >= 0") named by its line."""
+    found = _ROW_PROBLEM.match(detail)
+    if found is None or int(found.group(1)) >= len(lines):
+        return {"rows": detail}
+    column = f", {found.group(2)}" if found.group(2) else ""
+    return {"rows": f"line {lines[int(found.group(1))]}{column}: {found.group(3).rstrip('.')}"}
+
+
 def typical_page(session: Session, **extra: Any) -> dict[str, Any]:
     table = service.typical_losses_out(service.typical_losses(session))
     return {

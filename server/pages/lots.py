@@ -12,6 +12,7 @@ from server.deps import SessionDep
 from server.errors import Conflict, InvalidField
 from server.pages import views
 from server.pages.forms import FormDep, create_data, field_errors, patch_data
+from server.pages.page_cache import cached_page
 from server.pages.templating import RANKING_CHANGED, is_htmx, page_or_partial, render, see_other
 from server.services import offers as service
 
@@ -20,7 +21,8 @@ router = APIRouter()
 
 @router.get("/lots/{lot_id:int}", dependencies=[ANY_ROLE])
 def lot_detail(request: Request, lot_id: int, session: SessionDep, include_non_compliant: bool = False):
-    return render(request, "lots/detail.html", views.lot_detail(session, lot_id, include_non_compliant))
+    return cached_page(request, session, ("lot", lot_id, include_non_compliant), lambda: render(
+        request, "lots/detail.html", views.lot_detail(session, lot_id, include_non_compliant)))
 
 
 @router.get("/lots/{lot_id:int}/ranking", dependencies=[ANY_ROLE])

@@ -12,6 +12,7 @@ from server.errors import Conflict
 from server.services.compliance import all_tables, offer_findings, reason
 from server.services.loading import lot_rates
 from server.services.tenders import get_lot
+from server.storage.generation import GenerationCache
 from server.storage.models import CostBasisRevision, Lot, Offer, Tender
 
 
@@ -39,10 +40,17 @@ def rankable_offers(session: Session, lot: Lot) -> list[OfferLosses]:
     ]
 
 
+_RANKINGS = GenerationCache()
+
+
 def lot_ranking(session: Session, lot_id: int, include_non_compliant: bool = False) -> schemas.RankingOut:
-    """The lot's ranking under its tender's cost basis revision."""
-    lot = get_lot(session, lot_id)
-    return rank_lot(session, lot, lot.tender.cost_basis_revision, include_non_compliant)
+    """The lot's ranking under its tender's cost basis revision (computed once per data generation)."""
+
+    def compute() -> schemas.RankingOut:
+        lot = get_lot(session, lot_id)
+        return rank_lot(session, lot, lot.tender.cost_basis_revision, include_non_compliant)
+
+    return _RANKINGS.get_or_compute(session, ("ranking", lot_id, include_non_compliant), compute).model_copy(deep=True)
 
 
 def rank_lot(session: Session, lot: Lot, revision: CostBasisRevision,

@@ -15,6 +15,7 @@ from server.storage.models import (
     CostBasis,
     CostBasisRevision,
     EvaluationRecord,
+    LoadShape,
     Lot,
     Offer,
     Tender,
@@ -35,6 +36,7 @@ AUDITED: dict[type, str] = {
     EvaluationRecord: "evaluation_record",
     UserLimitTable: "limit_table",
     TestCertificate: "test_certificate",
+    LoadShape: "load_shape",
 }
 # Never copied into the trail (secrets), or noise that every change carries.
 _HIDDEN = {"password_hash"}
