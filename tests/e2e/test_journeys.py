@@ -116,3 +116,29 @@ def test_approver_awards_a_lot_and_opens_the_report(page: Page, live_server):
     expect(page.locator("body")).to_contain_text("Lean")
     expect(page.locator("body")).to_contain_text(re.compile("[Vv]erified"))
     shot("report")
+
+
+def test_planner_revises_the_cost_basis_and_previews_the_effect(page: Page, live_server):
+    base = live_server.url
+    shot = Shots(page, "planner")
+    with httpx.Client(base_url=f"{base}/api/v1", headers=auth("tester")) as api:
+        basis_id = api.post("/cost-bases", json=f.direct_basis(name="Planner basis")).json()["id"]
+        tender = api.post("/tenders", json=f.tender(basis_id)).json()
+        lot_id = tender["lots"][0]["id"]
+        api.post(f"/lots/{lot_id}/offers", json=f.offer(bidder="Lean", unit_price=12000, no_load_loss_w=300))
+        api.post(f"/lots/{lot_id}/offers", json=f.offer(bidder="Lossy", unit_price=11000, no_load_loss_w=600))
+    log_in(page, base, "planner")
+    page.goto(f"{base}/cost-bases/{basis_id}")
+    shot("basis")
+    box = page.locator("[name=no_load_rate_per_kw]").first
+    box.fill("1000")
+    box.press("Tab")
+    page.get_by_role("button", name="Save as a new revision").click()
+    expect(page.locator("#revisions")).to_contain_text("latest")
+    expect(page.locator("#revisions tbody tr")).to_have_count(2)
+    shot("revised")
+    page.locator("#revisions tbody tr").first.get_by_role("link", name=re.compile("Preview on open lots")).click()
+    result = page.locator("#revision-result")
+    expect(result).to_contain_text("400 kVA ground-mounted")
+    expect(result).to_contain_text("Lean")
+    shot("preview")
