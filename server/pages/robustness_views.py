@@ -115,31 +115,40 @@ def tornado_boxes() -> dict[str, str]:
 
 def tornado_request(form: FormValues) -> tuple[schemas.TornadoIn | None, dict[str, str]]:
     """The tornado form as the service takes it: each input with both boxes filled; one with both
-    empty is moved as the service moves inputs left out."""
-    ranges: dict[str, list[str]] = {}
+    empty is moved as the service moves inputs left out. Each input is checked on its own, so
+    that every bad box gets its message at once."""
+    ranges: dict[str, list[float]] = {}
     errors: dict[str, str] = {}
     for name in MOVED_INPUTS:
         low, high = form.get(f"{name}_low", ""), form.get(f"{name}_high", "")
         if low == high == "":
             continue
-        for side, text in (("low", low), ("high", high)):
-            if text == "":
-                errors[f"{name}_{side}"] = "fill this in, or empty both boxes of this input"
-        ranges[name] = [low, high]
-    boxes = {("ranges", name, k): f"{name}_{side}" for name in MOVED_INPUTS for k, side in enumerate(("low", "high"))}
-    try:
-        request = schemas.TornadoIn.model_validate({"ranges": {n: r for n, r in ranges.items()
-                                                               if f"{n}_low" not in errors and f"{n}_high" not in errors}})
-    except ValidationError as exc:
-        return None, errors | _errors(exc, boxes)
-    for name, (low, high) in request.ranges.items():
-        if name == "years":
-            for side, value in (("low", low), ("high", high)):
-                if not float(value).is_integer() or value < 1:
-                    errors.setdefault(f"years_{side}", "must be a whole number of years, 1 or more")
-        if high < low:
-            errors.setdefault(f"{name}_high", "must be at least the low value")
-    return (None, errors) if errors else (request, {})
+        if "" in (low, high):
+            errors[f"{name}_{'low' if low == '' else 'high'}"] = "fill this in, or empty both boxes of this input"
+            continue
+        try:
+            pair = schemas.TornadoIn.model_validate({"ranges": {name: [low, high]}}).ranges[name]
+        except ValidationError as exc:
+            errors |= _errors(exc, {("ranges", name, 0): f"{name}_low", ("ranges", name, 1): f"{name}_high"})
+            continue
+        found = _range_errors(name, pair[0], pair[1])
+        errors |= found
+        if not found:
+            ranges[name] = pair
+    if errors:
+        return None, errors
+    return schemas.TornadoIn(ranges=ranges), {}
+
+
+def _range_errors(name: str, low: float, high: float) -> dict[str, str]:
+    errors: dict[str, str] = {}
+    if name == "years":
+        for side, value in (("low", low), ("high", high)):
+            if not float(value).is_integer() or value < 1:
+                errors.setdefault(f"years_{side}", "must be a whole number of years, 1 or more")
+    if high < low:
+        errors.setdefault(f"{name}_high", "must be at least the low value")
+    return errors
 
 
 def tornado_rows(tornado: schemas.TornadoOut, wording: dict[str, tuple[str, str]],

@@ -128,3 +128,46 @@ def test_kill_during_offer_import_commit_leaves_all_or_nothing(db_url, delay):
     server = _start(db_url, port)  # the application starts again on the same database
     server.kill()
     server.wait(timeout=10)
+
+
+FLEET_ROWS = 60_000
+
+
+def _fleet_csv() -> bytes:
+    lines = ["asset_id,region,rating_kva,year_installed,no_load_loss_w,load_loss_w,peak_load_pu,loss_factor"]
+    lines += [f"K{k:06d},R{k % 7},400,{1970 + k % 50},{600 + k % 90},{4800 + k % 400},0.6,0.3" for k in range(FLEET_ROWS)]
+    return ("\n".join(lines) + "\n").encode()
+
+
+@pytest.mark.parametrize("delay", [0.2, 0.8, None])
+def test_kill_during_fleet_import_commit_leaves_all_or_nothing(db_url, delay):
+    port = _free_port()
+    server = _start(db_url, port)
+    try:
+        with httpx.Client(base_url=f"http://127.0.0.1:{port}/api/v1", headers=auth("tester"), timeout=120) as client:
+            staged = client.post("/fleet/import", files={"file": ("fleet.csv", _fleet_csv(), "text/csv")})
+            assert staged.status_code == 201 and staged.json()["can_commit"], staged.text[:300]
+
+            def commit():
+                try:
+                    client.post(f"/fleet/imports/{staged.json()['id']}/commit")
+                except httpx.HTTPError:
+                    pass
+
+            worker = threading.Thread(target=commit)
+            worker.start()
+            if delay is None:
+                worker.join(timeout=120)
+            else:
+                time.sleep(delay)
+            server.send_signal(signal.SIGKILL)
+            server.wait(timeout=10)
+            worker.join(timeout=30)
+    finally:
+        if server.poll() is None:
+            server.kill()
+    units = _count(db_url, "SELECT count(*) FROM fleet_units")
+    assert units in (0, FLEET_ROWS), f"a partial fleet import survived: {units} units"
+    if delay is None:
+        assert units == FLEET_ROWS
+    _integrity(db_url)
