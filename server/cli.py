@@ -37,11 +37,12 @@ def _session(url: str) -> Iterator[Session]:
 
 
 def _seed(url: str) -> None:
-    from server.demo import UTILITY, seed_demo, seed_demo_users
+    from server.demo import UTILITY, seed_demo, seed_demo_fleet, seed_demo_users
 
     with _session(url) as session:
         if seed_demo(session):
-            print(f"Seeded the demo scenario: {UTILITY}.")
+            units = seed_demo_fleet(session)
+            print(f"Seeded the demo scenario: {UTILITY}, with an invented fleet of {units} units.")
             print("Demo users (passwords are shown here once and stored only as hashes):")
             for name, roles, password in seed_demo_users(session):
                 print(f"  {name:<10} {password}   roles: {', '.join(roles)}")

@@ -105,14 +105,16 @@ def certificate_losses_chart(summary: schemas.CertificateSummaryOut,
                                      False, grid, f"+{limits[part]:g} %: {limit:,.0f} W"))
                 span.append(limit)
         low, high = (min(span), max(span)) if span else (0.0, 1.0)
-        spare = max(0.08 * (high - low), 0.02 * high, 1.0)
+        spare = max(0.05 * (high - low), 0.01 * high, 1.0)
+        y_min, y_max, interval, _ = tightest_axis(max(0.0, low - spare), high + spare, least_step=1.0)
         y_axes.append({
             "type": "value",
             "gridIndex": grid,
             "name": f"{names[part]} (W)",
             "nameTextStyle": {"align": "left"},
-            "min": max(0.0, round(low - spare)),
-            "max": round(high + spare),
+            "min": y_min,
+            "max": y_max,
+            "interval": interval,
             "splitLine": {"lineStyle": {"color": GRID_COLOUR}},
         })
     x_axes = [{
@@ -141,11 +143,36 @@ def certificate_losses_chart(summary: schemas.CertificateSummaryOut,
     }
 
 
-def _axis_ends(values: list[float], step: float) -> tuple[float, float]:
-    """An axis's ends: the values with a tenth of their span to spare, on whole steps."""
-    low, high = min(values), max(values)
-    spare = max(0.1 * (high - low), step / 2)
-    return math.floor((low - spare) / step) * step, math.ceil((high + spare) / step) * step
+def nice_axis(low: float, high: float, splits: int = 5, least_step: float = 0.0) -> tuple[float, float, float]:
+    """Ends and interval of an axis of ``splits`` equal steps covering low..high, each step 1, 2,
+    2.5 or 5 times a power of ten (and at least ``least_step``), so every tick is a round number."""
+    span = max(high - low, least_step * splits, 1e-9)
+    step = 10.0 ** math.floor(math.log10(span / splits))
+    for factor in (1.0, 2.0, 2.5, 5.0, 10.0, 20.0):
+        size = max(step * factor, least_step)
+        start = math.floor(low / size) * size
+        if start + splits * size >= high - 1e-9 * abs(high):
+            return round(start, 10), round(start + splits * size, 10), round(size, 10)
+    size = max(step * 50.0, least_step)
+    start = math.floor(low / size) * size
+    return round(start, 10), round(start + splits * size, 10), round(size, 10)
+
+
+def tightest_axis(low: float, high: float, least_step: float = 0.0, ceiling: float = math.inf,
+                  splits_from: tuple[int, ...] = (4, 5, 6)) -> tuple[float, float, float, int]:
+    """The ``nice_axis`` of 4, 5 or 6 steps that wastes least space, not above ``ceiling``;
+    and its number of steps."""
+    best = None
+    for splits in splits_from:
+        a_min, a_max, step = nice_axis(low, high, splits, least_step)
+        if a_max > ceiling + 1e-9:
+            continue
+        if best is None or a_max - a_min < best[1] - best[0]:
+            best = (a_min, a_max, step, splits)
+    if best is None:  # every choice runs past the ceiling: end there, on whole steps down from it
+        a_min, a_max, step = nice_axis(low, high, splits_from[-1], least_step)
+        return ceiling - splits_from[-1] * step, ceiling, step, splits_from[-1]
+    return best
 
 
 def analysis_curves_chart(points: list[schemas.OperatingPointOut]) -> dict[str, Any]:
@@ -160,8 +187,19 @@ def analysis_curves_chart(points: list[schemas.OperatingPointOut]) -> dict[str, 
     efficiency = [round(p.efficiency_pct, 3) for p in points]
     regulation = [round(p.regulation_pct, 3) for p in points]
     shown = [eta for p, eta in zip(points, efficiency, strict=True) if p.load_pu >= 0.2] or [95.0, 100.0]
-    eta_low, eta_high = _axis_ends(shown, 0.1)
-    reg_low, reg_high = _axis_ends(regulation + [0.0], 1.0)
+    # Both axes get the same number of steps so that their grid lines coincide.
+    # Both axes get the same number of steps so that their grid lines coincide: the number that
+    # wastes least of the two together.
+    eta_low, eta_high = min(shown), max(shown)
+    reg_low, reg_high = min(regulation + [0.0]), max(regulation + [1.0])
+    choices = []
+    for splits in (4, 5, 6):
+        eta_axis = tightest_axis(eta_low, eta_high, least_step=0.01, ceiling=100.0, splits_from=(splits,))
+        reg_axis = nice_axis(reg_low, reg_high, splits, least_step=0.1)
+        waste = ((eta_axis[1] - eta_axis[0]) / max(eta_high - eta_low, 1e-6)
+                 + (reg_axis[1] - reg_axis[0]) / max(reg_high - reg_low, 1e-6))
+        choices.append((waste, eta_axis[:3], reg_axis))
+    _, (eta_min, eta_max, eta_step), (reg_min, reg_max, reg_step) = min(choices, key=lambda c: c[0])
     return {
         "animation": False,
         "textStyle": {"color": TEXT_COLOUR, "fontFamily": FONT, "fontSize": 13},
@@ -180,9 +218,9 @@ def analysis_curves_chart(points: list[schemas.OperatingPointOut]) -> dict[str, 
         },
         "yAxis": [
             {"type": "value", "name": "Efficiency (%)", "nameTextStyle": {"align": "left"},
-             "min": round(eta_low, 1), "max": min(100.0, round(eta_high, 1)), "splitLine": {"lineStyle": {"color": GRID_COLOUR}}},
-            {"type": "value", "name": "Regulation (%)", "nameTextStyle": {"align": "right"},
-             "min": min(0.0, reg_low), "max": max(1.0, reg_high), "splitLine": {"show": False}},
+             "min": eta_min, "max": eta_max, "interval": eta_step, "splitLine": {"lineStyle": {"color": GRID_COLOUR}}},
+            {"type": "value", "name": "Voltage regulation (%)", "nameTextStyle": {"align": "right"},
+             "min": reg_min, "max": reg_max, "interval": reg_step, "splitLine": {"show": False}},
         ],
         "series": [
             {"id": "efficiency", "name": "Efficiency", "type": "line", "yAxisIndex": 0, "showSymbol": False,

@@ -216,22 +216,29 @@ def _distribution_errors(name: str, dist: schemas.DistributionIn) -> dict[str, s
 
 def monte_carlo_request(form: FormValues) -> tuple[schemas.MonteCarloIn | None, dict[str, str]]:
     """The Monte Carlo form as the service takes it: per input its distribution with only the
-    boxes it reads (a fixed input holds the basis value and is left out), or the messages."""
-    inputs: dict[str, dict[str, str]] = {}
+    boxes it reads (a fixed input holds the basis value and is left out), or the messages. The
+    draws, the seed and each input are checked on their own, so every bad box shows at once."""
+    errors: dict[str, str] = {}
+    inputs: dict[str, schemas.DistributionIn] = {}
     for name in MOVED_INPUTS:
         dist = form.get(f"{name}_dist", "fixed")
         if dist == "fixed":
             continue
-        inputs[name] = {"dist": dist} | {key: form.get(f"{name}_{key}", "") for key in DISTRIBUTION_BOXES.get(dist, ())}
-    data = {"draws": form.get("draws", ""), "seed": form.get("seed", ""), "inputs": inputs}
-    boxes = {("inputs", name, key): f"{name}_{key}" for name in MOVED_INPUTS for key in (*MONTE_CARLO_BOXES, "dist")}
+        boxes = {key: form.get(f"{name}_{key}", "") for key in DISTRIBUTION_BOXES.get(dist, ())}
+        try:
+            spec = schemas.DistributionIn.model_validate({"dist": dist} | boxes)
+        except ValidationError as exc:
+            errors |= _errors(exc, {(key,): f"{name}_{key}" for key in (*MONTE_CARLO_BOXES, "dist")})
+            continue
+        found = _distribution_errors(name, spec)
+        errors |= found
+        if not found:
+            inputs[name] = spec
     try:
-        request = schemas.MonteCarloIn.model_validate(data)
+        request = schemas.MonteCarloIn.model_validate(
+            {"draws": form.get("draws", ""), "seed": form.get("seed", ""), "inputs": inputs})
     except ValidationError as exc:
-        return None, _errors(exc, boxes)
-    errors: dict[str, str] = {}
-    for name, dist in request.inputs.items():
-        errors |= _distribution_errors(name, dist)
+        return None, _errors(exc) | errors
     return (None, errors) if errors else (request, {})
 
 

@@ -82,3 +82,16 @@ def test_users_commands(cli_env, capsys, monkeypatch):
     with make_client(cli_env) as client:
         r = client.post("/api/v1/token", data={"username": "erin", "password": "another long password"})
         assert r.status_code == 401  # disabled
+
+
+def test_demo_fleet_has_units_and_marks_estimates(cli_env, capsys):
+    assert cli.main(["demo"]) == 0
+    out = capsys.readouterr().out
+    assert "invented fleet of 600 units" in out
+    with make_client(cli_env) as client:
+        password = _demo_password(out, "demo-viewer")
+        token = client.post("/api/v1/token", data={"username": "demo-viewer", "password": password}).json()
+        client.headers["Authorization"] = f"Bearer {token['access_token']}"
+        basis = next(b for b in client.get("/api/v1/cost-bases").json() if b["method"] == "present_worth")
+        summary = client.get("/api/v1/fleet/summary", params={"cost_basis_id": basis["id"]}).json()
+        assert summary["units"] == 600 and summary["units_with_estimated_losses"] == 75
