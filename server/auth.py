@@ -14,7 +14,7 @@ from starlette.concurrency import run_in_threadpool
 from server.errors import ServiceError
 from server.security import CSRF_FIELD, CSRF_HEADER, SESSION_COOKIE, same_secret, unsign_cookie
 from server.services import users
-from server.storage.audit import Actor, set_actor
+from server.storage.audit import Actor
 from server.storage.models import ROLES
 
 SAFE_METHODS = {"GET", "HEAD", "OPTIONS"}

@@ -214,6 +214,8 @@ def analysis_curves_chart(points: list[schemas.OperatingPointOut]) -> dict[str, 
             "name": "Loading (% of the rating)",
             "nameLocation": "middle",
             "nameGap": 30,
+            # At the foot of the plot, not where a leading power factor's regulation crosses zero.
+            "axisLine": {"onZero": False},
             "splitLine": {"lineStyle": {"color": GRID_COLOUR}},
         },
         "yAxis": [

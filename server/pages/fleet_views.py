@@ -58,10 +58,14 @@ class BasisChoice:
         return self.method != "direct"
 
 
+_METHOD_ORDER = {"present_worth": 0, "fixed_charge_rate": 1}
+
+
 def basis_choices(session: Session) -> list[BasisChoice]:
-    """Every cost basis, the ones with energy prices first."""
+    """Every cost basis: present worth first (it carries a discount rate for the shortlist), then
+    fixed charge rate, then the direct-rates ones, which have no energy price."""
     choices = [BasisChoice(b.id, b.name, b.currency, b.latest.method) for b in cost_bases.list_cost_bases(session)]
-    return sorted(choices, key=lambda c: not c.priced)
+    return sorted(choices, key=lambda c: _METHOD_ORDER.get(c.method, 2))
 
 
 def fleet_view(query: FormValues, bases: list[BasisChoice]) -> tuple[FleetView, dict[str, str], dict[str, str]]:
@@ -246,7 +250,10 @@ def typical_page(session: Session, **extra: Any) -> dict[str, Any]:
     return {
         "table": table,
         "insulation_names": {LIQUID: "Liquid-immersed", DRY: "Dry-type"},
-        "edit_form": {"name": table["name"], "source": table["source"], "rows": typical_rows_text(table)},
+        # Rows changed from the illustrative defaults are no longer what their source describes:
+        # the planner says where the new numbers come from.
+        "edit_form": {"name": table["name"], "source": "" if table["status"] == "illustrative" else table["source"],
+                      "rows": typical_rows_text(table)},
         "edit_errors": {},
         "saved": False,
     } | extra

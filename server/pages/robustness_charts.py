@@ -7,6 +7,7 @@ Pure functions over service results, like ``server.pages.charts``; ``static/js/c
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from server import schemas
@@ -19,6 +20,8 @@ MARKER_COLOUR = "#1d2530"
 TIE_COLOUR = "#1d2530"
 LEGEND_WIDTH_PX = 200
 LABEL_WIDTH_PX = 190
+# The Monte Carlo charts run the page's full width: room for a whole bidder's name.
+WIDE_LABEL_WIDTH_PX = 240
 # More cells than this make the page heavy for little gain: the tie lines are exact anyway.
 MAX_CELLS = 120 * 120
 
@@ -30,6 +33,13 @@ def offer_colours(offer_ids: list[int]) -> dict[int, str]:
 
 def _frame() -> dict[str, Any]:
     return {"animation": False, "textStyle": {"color": TEXT_COLOUR, "fontFamily": FONT, "fontSize": 13}}
+
+
+def _nice_step(span: float, ticks: int = 6) -> float:
+    """A step of 1, 2, 2.5 or 5 times a power of ten giving about ``ticks`` intervals over ``span``."""
+    raw = max(span, 1e-9) / ticks
+    power = 10.0 ** math.floor(math.log10(raw))
+    return next(k * power for k in (1.0, 2.0, 2.5, 5.0, 10.0) if k * power >= raw)
 
 
 def _axis_edges(values: list[float]) -> tuple[float, float]:
@@ -132,10 +142,11 @@ def tornado_chart(tornado: schemas.TornadoOut, labels: dict[str, str], values: d
 
     low, high = bars("low", LOW_COLOUR), bars("high", HIGH_COLOUR)
     marks: list[dict[str, Any]] = [{"xAxis": 0, "lineStyle": {"color": MARKER_COLOUR, "type": "solid", "width": 1.5},
-                                    "label": {"formatter": f"base margin {fmt_money(base)}", "position": "end"}}]
+                                    "label": {"formatter": f"base margin {fmt_money(base)} {currency}", "position": "start"}}]
     if any(r.leader_changes for r in tornado.rows):
         marks.append({"xAxis": round(-base), "lineStyle": {"color": LIMIT_COLOUR, "type": "dashed", "width": 1.5},
-                      "label": {"formatter": "a rival leads", "position": "end", "color": LIMIT_COLOUR}})
+                      "label": {"formatter": "a rival leads", "position": "start", "color": LIMIT_COLOUR}})
+    # The category axis runs top to bottom, so a line's start is at the top, clear of the axis name.
     low["markLine"] = {"symbol": "none", "silent": True, "data": marks}
     return _frame() | {
         "tooltip": {"trigger": "item"},
@@ -155,12 +166,12 @@ def win_probability_chart(result: schemas.MonteCarloOut) -> dict[str, Any]:
     colours = offer_colours([r.offer_id for r in result.rows])
     return _frame() | {
         "tooltip": {"trigger": "item", "formatter": "{b}: {c} %"},
-        "grid": {"left": LABEL_WIDTH_PX + 16, "right": 56, "top": 12, "bottom": 44},
+        "grid": {"left": WIDE_LABEL_WIDTH_PX + 16, "right": 56, "top": 12, "bottom": 44},
         "xAxis": {"type": "value", "min": 0, "max": 100, "interval": 20, "name": "Win probability (%)",
                   "nameLocation": "middle", "nameGap": 28, "splitLine": {"lineStyle": {"color": GRID_COLOUR}}},
         "yAxis": {"type": "category", "inverse": True, "data": [r.bidder for r in result.rows],
                   "axisTick": {"show": False},
-                  "axisLabel": {"width": LABEL_WIDTH_PX, "overflow": "truncate", "fontSize": 13}},
+                  "axisLabel": {"width": WIDE_LABEL_WIDTH_PX, "overflow": "truncate", "fontSize": 13}},
         "series": [{
             "id": "win-probability", "name": "Win probability", "type": "bar", "barMaxWidth": 24,
             "label": {"show": True, "position": "right", "formatter": "{c} %"},
@@ -179,19 +190,22 @@ def toc_band_chart(result: schemas.MonteCarloOut, currency: str) -> dict[str, An
     rows = result.rows
     low = min((r.toc_p5 for r in rows), default=0.0)
     high = max((r.toc_p95 for r in rows), default=0.0)
-    spare = max(0.08 * (high - low), 0.005 * abs(high), 1.0)
+    # Whole steps a little beyond the bands: the axis fits the bands, not zero.
+    step = _nice_step(max(high - low, 0.01 * abs(high), 1.0))
+    axis_min = round(math.floor(low / step - 0.25) * step, 9)
+    axis_max = round(math.ceil(high / step + 0.25) * step, 9)
     band_tips = [f"{r.bidder}: 5 % {fmt_money(r.toc_p5)}, median {fmt_money(r.toc_p50)}, "
                  f"95 % {fmt_money(r.toc_p95)} {currency}" for r in rows]
     return _frame() | {
         "tooltip": {"trigger": "item"},
         "legend": {"top": 0, "left": 0, "itemWidth": 14, "itemHeight": 10, "textStyle": {"fontSize": 13},
                    "data": ["5th to 95th percentile", "Median"]},
-        "grid": {"left": LABEL_WIDTH_PX + 16, "right": 40, "top": 40, "bottom": 44},
-        "xAxis": {"type": "value", "scale": True, "min": round(low - spare), "max": round(high + spare),
+        "grid": {"left": WIDE_LABEL_WIDTH_PX + 16, "right": 40, "top": 40, "bottom": 44},
+        "xAxis": {"type": "value", "scale": True, "min": axis_min, "max": axis_max, "interval": step,
                   "name": f"Total owning cost per unit ({currency})", "nameLocation": "middle", "nameGap": 28,
-                  "splitLine": {"lineStyle": {"color": GRID_COLOUR}}, "axisLabel": {"hideOverlap": True}},
+                  "splitLine": {"lineStyle": {"color": GRID_COLOUR}}},
         "yAxis": {"type": "category", "inverse": True, "data": [r.bidder for r in rows], "axisTick": {"show": False},
-                  "axisLabel": {"width": LABEL_WIDTH_PX, "overflow": "truncate", "fontSize": 13}},
+                  "axisLabel": {"width": WIDE_LABEL_WIDTH_PX, "overflow": "truncate", "fontSize": 13}},
         "series": [
             {"id": "to-p5", "name": "to-p5", "type": "bar", "stack": "band", "silent": True, "barMaxWidth": 22,
              "itemStyle": {"color": "transparent"}, "tooltip": {"show": False},

@@ -22,7 +22,7 @@ from server.services.robustness import award_robustness
 from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
 from server.storage import audit
-from server.storage.models import EvaluationRecord, Lot, Offer, Tender, utcnow
+from server.storage.models import EvaluationRecord, Lot, Offer, utcnow
 from server.version import VERSION
 
 _OFFER_FIELDS = (

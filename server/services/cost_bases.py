@@ -25,26 +25,31 @@ from server.storage.models import CostBasis, CostBasisRevision, utcnow
 _INPUTS = TypeAdapter(schemas.MethodInputs)
 
 
+def present_worth_arguments(inputs: schemas.PresentWorthInputs) -> dict:
+    """The keyword arguments of ``domain.rates`` present-worth functions: percentages as fractions."""
+    return {
+        "energy_price_per_kwh": inputs.energy_price_per_kwh,
+        "energy_escalation": inputs.energy_escalation_pct / 100,
+        "capacity_cost_per_kw_year": inputs.capacity_cost_per_kw_year,
+        "discount_rate": inputs.discount_rate_pct / 100,
+        "years": inputs.years,
+        "peak_load_pu": inputs.peak_load_pu,
+        "load_growth": inputs.load_growth_pct / 100,
+        "loss_factor": inputs.loss_factor,
+        "responsibility_factor": inputs.responsibility_factor,
+        "cooling_hours_per_year": inputs.cooling_hours_per_year,
+        "energy_price_path_per_kwh": inputs.energy_price_path_per_kwh,
+        "carbon_cost_per_kwh": carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
+    }
+
+
 def rates_for(inputs: schemas.DirectInputs | schemas.PresentWorthInputs | schemas.FixedChargeRateInputs) -> CapitalisationRates:
     """Derive A, B, C from validated inputs; percentages become fractions here."""
     try:
         if isinstance(inputs, schemas.DirectInputs):
             return rates_direct(inputs.no_load_rate_per_kw, inputs.load_rate_per_kw, inputs.aux_rate_per_kw)
         if isinstance(inputs, schemas.PresentWorthInputs):
-            return rates_present_worth(
-                energy_price_per_kwh=inputs.energy_price_per_kwh,
-                energy_escalation=inputs.energy_escalation_pct / 100,
-                capacity_cost_per_kw_year=inputs.capacity_cost_per_kw_year,
-                discount_rate=inputs.discount_rate_pct / 100,
-                years=inputs.years,
-                peak_load_pu=inputs.peak_load_pu,
-                load_growth=inputs.load_growth_pct / 100,
-                loss_factor=inputs.loss_factor,
-                responsibility_factor=inputs.responsibility_factor,
-                cooling_hours_per_year=inputs.cooling_hours_per_year,
-                energy_price_path_per_kwh=inputs.energy_price_path_per_kwh,
-                carbon_cost_per_kwh=carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
-            )
+            return rates_present_worth(**present_worth_arguments(inputs))
         return rates_fixed_charge_rate(
             system_capacity_cost_per_kw_year=inputs.system_capacity_cost_per_kw_year,
             energy_cost_per_kwh=inputs.energy_cost_per_kwh

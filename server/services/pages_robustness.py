@@ -4,6 +4,7 @@ be drawn, the present-worth inputs the forms start from, and a Monte Carlo run w
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 from sqlalchemy import select
@@ -96,6 +97,27 @@ def _field_errors(exc: InvalidField, boxes: dict[str, str]) -> dict[str, str]:
     return {boxes.get(exc.field, exc.field): exc.detail}
 
 
+def _two_figures(value: float, up: bool) -> float:
+    """``value`` rounded down (or up) to two significant figures."""
+    if value <= 0:
+        return 0.0
+    scale = 10.0 ** (math.floor(math.log10(value)) - 1)
+    return round((math.ceil if up else math.floor)(value / scale) * scale, 10)
+
+
+def _readable_ranges(request: schemas.RateMapIn, be: schemas.BreakEvenOut) -> schemas.RateMapIn:
+    """With no range asked, the service's default (a quarter to twice each current rate) widened
+    to ends on two significant figures, which a person can read and type again."""
+    if any(v is not None for v in (request.no_load_rate_min, request.no_load_rate_max, request.load_rate_min,
+                                   request.load_rate_max)):
+        return request
+    a, b = be.no_load_rate_per_kw, be.load_rate_per_kw
+    return request.model_copy(update={
+        "no_load_rate_min": _two_figures(a * 0.25, up=False), "no_load_rate_max": _two_figures(max(a * 2.0, 1.0), up=True),
+        "load_rate_min": _two_figures(b * 0.25, up=False), "load_rate_max": _two_figures(max(b * 2.0, 1.0), up=True),
+    })
+
+
 def latest_run(session: Session, lot_id: int) -> MonteCarloRun | None:
     return session.scalars(
         select(MonteCarloRun).where(MonteCarloRun.lot_id == lot_id).order_by(MonteCarloRun.id.desc()).limit(1)
@@ -110,8 +132,8 @@ def robustness_page(
     run_id: int | None = None,
     tornado_boxes: dict[str, str] | None = None,
 ) -> RobustnessPage:
-    """Break-even, rate map (when ``rate_map`` is given) and tornado (when ``tornado`` is given)
-    for a lot, and a Monte Carlo run: ``run_id`` if given (it must be this lot's), else the lot's
+    """Break-even, rate map (when ``rate_map`` is given; with no range in it, over readable
+    default ranges) and tornado (when ``tornado`` is given) for a lot, and a Monte Carlo run: ``run_id`` if given (it must be this lot's), else the lot's
     latest. A section that cannot be computed carries its reason instead of its result."""
     lot = get_lot(session, lot_id)
     page = RobustnessPage(_facts(lot))
@@ -124,6 +146,7 @@ def robustness_page(
     except InvalidField as exc:
         page.present_worth_problem = exc.detail
     if page.problem is None and rate_map is not None:
+        rate_map = _readable_ranges(rate_map, page.break_even)
         try:
             page.rate_map = robustness.lot_rate_map(session, lot_id, rate_map)
         except InvalidField as exc:

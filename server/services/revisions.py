@@ -8,7 +8,7 @@ from sqlalchemy.orm import Session
 from domain.rates import carbon_cost_per_kwh, present_worth_table
 from server import schemas
 from server.exports import write_csv
-from server.services.cost_bases import get_cost_basis, get_revision, parse_inputs
+from server.services.cost_bases import get_cost_basis, get_revision, parse_inputs, present_worth_arguments
 from server.services.locks import active_record
 from server.services.ranking import rank_lot
 from server.storage.models import CostBasisRevision, Tender
@@ -107,20 +107,7 @@ def workings(session: Session, cost_basis_id: int, revision: int) -> schemas.Wor
     table: list[list[float]] = []
     columns: list[str] = []
     if rev.method == "present_worth":
-        year_table = present_worth_table(
-            energy_price_per_kwh=inputs.energy_price_per_kwh,
-            energy_escalation=inputs.energy_escalation_pct / 100,
-            capacity_cost_per_kw_year=inputs.capacity_cost_per_kw_year,
-            discount_rate=inputs.discount_rate_pct / 100,
-            years=inputs.years,
-            peak_load_pu=inputs.peak_load_pu,
-            load_growth=inputs.load_growth_pct / 100,
-            loss_factor=inputs.loss_factor,
-            responsibility_factor=inputs.responsibility_factor,
-            cooling_hours_per_year=inputs.cooling_hours_per_year,
-            energy_price_path_per_kwh=inputs.energy_price_path_per_kwh,
-            carbon_cost_per_kwh=carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
-        )
+        year_table = present_worth_table(**present_worth_arguments(inputs))
         for rate, loss in (("A", "no_load"), ("B", "load"), ("C", "aux")):
             for component in ("capacity", "energy", "carbon"):
                 terms.append(schemas.RateTermOut(

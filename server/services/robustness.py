@@ -11,7 +11,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from domain.errors import DomainError, InvalidInput
-from domain.rates import CapitalisationRates, carbon_cost_per_kwh
+from domain.rates import CapitalisationRates
 from domain.sensitivity import (
     OfferArrays,
     SimulationCancelled,
@@ -27,6 +27,7 @@ from domain.sensitivity import (
 from server import schemas
 from server.errors import InvalidField
 from server.services.common import commit, get_or_404
+from server.services.cost_bases import present_worth_arguments
 from server.services.loading import lot_inputs, lot_rates
 from server.services.ranking import rankable_offers
 from server.services.tenders import get_lot
@@ -78,14 +79,9 @@ def base_inputs(lot) -> dict[str, float]:
     if inputs.energy_price_path_per_kwh:
         raise InvalidField("cost_basis", "this analysis moves a flat energy price with escalation; the basis gives an "
                            "explicit price for each year.")
-    return {
-        "energy_price_per_kwh": inputs.energy_price_per_kwh, "energy_escalation": inputs.energy_escalation_pct / 100,
-        "capacity_cost_per_kw_year": inputs.capacity_cost_per_kw_year, "discount_rate": inputs.discount_rate_pct / 100,
-        "years": inputs.years, "peak_load_pu": inputs.peak_load_pu, "load_growth": inputs.load_growth_pct / 100,
-        "loss_factor": inputs.loss_factor, "responsibility_factor": inputs.responsibility_factor,
-        "cooling_hours_per_year": inputs.cooling_hours_per_year,
-        "carbon_cost_per_kwh": carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
-    }
+    arguments = present_worth_arguments(inputs)
+    del arguments["energy_price_path_per_kwh"]
+    return arguments
 
 
 def _domain_errors(fn):

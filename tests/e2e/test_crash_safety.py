@@ -69,6 +69,26 @@ def _count(db_url: str, sql: str) -> int:
         engine.dispose()
 
 
+def _commit_then_kill(client: httpx.Client, path: str, server: subprocess.Popen, delay: float | None) -> None:
+    """POST ``path`` in a thread and SIGKILL the server ``delay`` seconds later (None: after it answers)."""
+
+    def commit():
+        try:
+            client.post(path)
+        except httpx.HTTPError:
+            pass  # the server dies under the request
+
+    worker = threading.Thread(target=commit)
+    worker.start()
+    if delay is None:
+        worker.join(timeout=120)
+    else:
+        time.sleep(delay)
+    server.send_signal(signal.SIGKILL)
+    server.wait(timeout=10)
+    worker.join(timeout=30)
+
+
 def _integrity(db_url: str) -> None:
     engine = create_engine(db_url)
     try:
@@ -100,23 +120,7 @@ def test_kill_during_offer_import_commit_leaves_all_or_nothing(db_url, delay):
             staged = client.post(f"/tenders/{tender['id']}/offer-imports", params={"rows_limit": 0},
                                  files={"file": ("offers.xlsx", _workbook(), "application/octet-stream")})
             assert staged.status_code == 201, staged.text
-            import_id = staged.json()["id"]
-
-            def commit():
-                try:
-                    client.post(f"/offer-imports/{import_id}/commit")
-                except httpx.HTTPError:
-                    pass  # the server dies under the request
-
-            worker = threading.Thread(target=commit)
-            worker.start()
-            if delay is None:
-                worker.join(timeout=120)
-            else:
-                time.sleep(delay)
-            server.send_signal(signal.SIGKILL)
-            server.wait(timeout=10)
-            worker.join(timeout=30)
+            _commit_then_kill(client, f"/offer-imports/{staged.json()['id']}/commit", server, delay)
     finally:
         if server.poll() is None:
             server.kill()
@@ -147,22 +151,7 @@ def test_kill_during_fleet_import_commit_leaves_all_or_nothing(db_url, delay):
         with httpx.Client(base_url=f"http://127.0.0.1:{port}/api/v1", headers=auth("tester"), timeout=120) as client:
             staged = client.post("/fleet/import", files={"file": ("fleet.csv", _fleet_csv(), "text/csv")})
             assert staged.status_code == 201 and staged.json()["can_commit"], staged.text[:300]
-
-            def commit():
-                try:
-                    client.post(f"/fleet/imports/{staged.json()['id']}/commit")
-                except httpx.HTTPError:
-                    pass
-
-            worker = threading.Thread(target=commit)
-            worker.start()
-            if delay is None:
-                worker.join(timeout=120)
-            else:
-                time.sleep(delay)
-            server.send_signal(signal.SIGKILL)
-            server.wait(timeout=10)
-            worker.join(timeout=30)
+            _commit_then_kill(client, f"/fleet/imports/{staged.json()['id']}/commit", server, delay)
     finally:
         if server.poll() is None:
             server.kill()

@@ -243,3 +243,29 @@ def test_planners_edit_the_typical_loss_table_as_text(page_client):
     _api_import(page_client)
     units = {u["asset_id"]: u for u in page_client.get("/api/v1/fleet/units", headers=API).json()["units"]}
     assert units["A-4"]["no_load_loss_w"] == pytest.approx(300 + (1000 - 100) / 1900 * 2700)
+
+
+def test_the_page_reads_the_fleet_as_the_api_does_on_every_engine(client):
+    """The page reads the fleet with its own leaner query (server/services/pages_fleet.py): its
+    figures must be the API's, on SQLite and PostgreSQL alike."""
+    rows = FLEET + [[f"B-{k}", "Quay Road", "South", 250, 3, "liquid", 1990 + k, "", 3000, "", 0.2 + 0.05 * k, 0.3, ""]
+                    for k in range(8)]
+    response = client.post("/api/v1/fleet/import", data={"commit": "true"},
+                           files={"file": ("fleet.csv", _csv(rows), "text/csv")})
+    assert response.status_code == 201, response.text
+    basis_id = _basis(client)
+    for by in ("region", "site", "vintage"):
+        page = client.get("/fleet", params={"cost_basis_id": basis_id, "by": by, "min_loading_pu": "0.4", "limit": "3"})
+        assert page.status_code == 200
+        words = _text(page.text)
+        summary = client.get("/api/v1/fleet/summary", params={"cost_basis_id": basis_id}).json()
+        assert f"Units {summary['units']}" in words
+        assert f"With estimated losses {summary['units_with_estimated_losses']} estimated" in words
+        assert f"Loss cost a year {summary['loss_cost_per_year']:,.0f} EUR" in words
+        groups = client.get("/api/v1/fleet/groups", params={"cost_basis_id": basis_id, "by": by}).json()["groups"]
+        bars = next(s for s in _charts(page.text)[0]["series"] if s["id"] == "loss-cost")["data"]
+        assert bars == [round(g["loss_cost_per_year"]) for g in groups]
+    loading = client.get("/api/v1/fleet/loading", params={"min_loading_pu": 0.4, "limit": 3}).json()
+    assert f"Oversized, below 0.4 pu {loading['oversized_count']}" in words
+    listed = re.findall(r'<th scope="row">([AB]-\d+)</th><td>', page.text)
+    assert listed == [u["asset_id"] for u in loading["overloaded"] + loading["oversized"]]

@@ -446,7 +446,7 @@ def test_exchange_rates_and_an_offer_in_another_currency_show_both_prices(page_c
     # The edit row offers the same choice, with the offer's own currency chosen; an edit can move it.
     dollar = next(o for o in _offers(page_client, lot_id) if o["bidder"] == "Dollar")
     row = page_client.get(f"/offers/{dollar['id']}/edit", headers=HX).text
-    assert f'<option value="USD" selected>' in row
+    assert '<option value="USD" selected>' in row
     edited = offer_form(csrf, bidder="Dollar", unit_price=10000) | {"currency": "GBP", "version": str(dollar["version"])}
     assert page_client.post(f"/offers/{dollar['id']}", data=edited, headers=HX).status_code == 200
     assert page_client.get(f"/api/v1/offers/{dollar['id']}", headers=API).json()["currency"] == "GBP"

@@ -126,8 +126,9 @@ def test_the_rate_map_marks_the_current_basis_and_its_winner_is_the_leader(page_
     cells = _series(chart, "winners")["data"]
     a_axis, b_axis = chart["xAxis"][0]["data"], chart["yAxis"][0]["data"]
     assert len(cells) == len(a_axis) * len(b_axis) == 60 * 60
-    # The map spans a quarter to twice each rate, and the boxes show that range.
-    assert (a_axis[0], a_axis[-1], b_axis[0], b_axis[-1]) == (1500.0, 12000.0, 375.0, 3000.0)
+    # The map spans a quarter to twice each rate, widened to two significant figures (375 to 370),
+    # and the boxes show that range.
+    assert (a_axis[0], a_axis[-1], b_axis[0], b_axis[-1]) == (1500.0, 12000.0, 370.0, 3000.0)
     assert 'id="rm-no_load_rate_max" name="no_load_rate_max" type="text" value="12000"' in page
     # The cell nearest the marker is won by the leader, coloured as the legend names it.
     col = min(range(len(a_axis)), key=lambda k: abs(a_axis[k] - 6000))
