@@ -8,6 +8,7 @@ token, then served to every viewer with those roles until the data generation mo
 from __future__ import annotations
 
 import dataclasses
+import secrets
 from collections.abc import Callable
 from html import escape
 
@@ -17,8 +18,10 @@ from sqlalchemy.orm import Session
 
 from server.storage.generation import GenerationCache
 
-_USER = "\x00user\x00"
-_TOKEN = "\x00token\x00"
+# Plain letters and digits, so that HTML escaping and JSON encoding (the token also sits in the
+# page's hx-headers attribute) leave them unchanged and one replace finds every copy.
+_USER = "viewername" + secrets.token_hex(12)
+_TOKEN = "viewertoken" + secrets.token_hex(12)
 _PAGES = GenerationCache(size=128)
 
 

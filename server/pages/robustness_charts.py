@@ -142,11 +142,14 @@ def tornado_chart(tornado: schemas.TornadoOut, labels: dict[str, str], values: d
 
     low, high = bars("low", LOW_COLOUR), bars("high", HIGH_COLOUR)
     marks: list[dict[str, Any]] = [{"xAxis": 0, "lineStyle": {"color": MARKER_COLOUR, "type": "solid", "width": 1.5},
-                                    "label": {"formatter": f"base margin {fmt_money(base)} {currency}", "position": "start"}}]
+                                    "label": {"formatter": f"base margin {fmt_money(base)} {currency}",
+                                              "position": "start", "align": "left", "padding": [0, 0, 0, 6]}}]
     if any(r.leader_changes for r in tornado.rows):
         marks.append({"xAxis": round(-base), "lineStyle": {"color": LIMIT_COLOUR, "type": "dashed", "width": 1.5},
-                      "label": {"formatter": "a rival leads", "position": "start", "color": LIMIT_COLOUR}})
-    # The category axis runs top to bottom, so a line's start is at the top, clear of the axis name.
+                      "label": {"formatter": "a rival leads", "position": "start", "align": "right",
+                                "padding": [0, 6, 0, 0], "color": LIMIT_COLOUR}})
+    # The category axis runs top to bottom, so a line's start is at the top, clear of the axis name;
+    # the two labels lean away from each other, the rival's line being always left of the base.
     low["markLine"] = {"symbol": "none", "silent": True, "data": marks}
     return _frame() | {
         "tooltip": {"trigger": "item"},

@@ -254,7 +254,8 @@ def run_inputs(request: dict[str, Any], wording: dict[str, tuple[str, str]]) -> 
         elif dist == "triangular":
             text = f"triangular, {value['low']} to {value['high']}, most likely {value['mode']}"
         elif dist == "normal":
-            text = f"normal, mean {value['mean']}, standard deviation {value['sd']}, cut at {value['low']} and {value['high']}"
+            text = (f"normal, mean {value['mean']}, standard deviation {value['sd']}, "
+                    f"cut at {value['low']} and {value['high']}")
         else:
             text = f"fixed at {value['mode']}" if "mode" in value else "fixed at the basis value"
         out.append(f"{label}: {text} {unit}".rstrip())
@@ -294,7 +295,8 @@ def page_context(
     typed); the others start from their defaults. ``monte_carlo_only`` skips the rate map and
     the tornado (the Monte Carlo section alone shows neither)."""
     rate_in, rate_errors = rate_map_request(rate_form) if rate_form is not None else (RateMapForm(), {})
-    tornado_in, tornado_errors = tornado_request(tornado_form) if tornado_form is not None else (schemas.TornadoIn(), {})
+    tornado_in, tornado_errors = (tornado_request(tornado_form) if tornado_form is not None
+                                  else (schemas.TornadoIn(), {}))
     if monte_carlo_only:
         rate_in = tornado_in = None
     page = pages_robustness.robustness_page(session, lot_id, rate_in, tornado_in, run_id, tornado_boxes())
@@ -306,7 +308,8 @@ def page_context(
         "rivals": sorted(be.rows, key=lambda r: r.margin_now) if be else [], "bidders": bidders,
         "wording": wording, "moved_inputs": MOVED_INPUTS, "present_worth_problem": page.present_worth_problem,
         "base": base, "tornado_box_names": [f"{n}_{side}" for n in MOVED_INPUTS for side in ("low", "high")],
-        "mc_box_names": ["draws", "seed"] + [f"{n}_{key}" for n in MOVED_INPUTS for key in ("dist", *MONTE_CARLO_BOXES)],
+        "mc_box_names": ["draws", "seed"] + [f"{n}_{key}" for n in MOVED_INPUTS
+                                             for key in ("dist", *MONTE_CARLO_BOXES)],
     }
     # The rate map: with no form sent, the boxes show the range the service chose.
     rate_map = page.rate_map

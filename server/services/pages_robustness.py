@@ -113,8 +113,10 @@ def _readable_ranges(request: schemas.RateMapIn, be: schemas.BreakEvenOut) -> sc
         return request
     a, b = be.no_load_rate_per_kw, be.load_rate_per_kw
     return request.model_copy(update={
-        "no_load_rate_min": _two_figures(a * 0.25, up=False), "no_load_rate_max": _two_figures(max(a * 2.0, 1.0), up=True),
-        "load_rate_min": _two_figures(b * 0.25, up=False), "load_rate_max": _two_figures(max(b * 2.0, 1.0), up=True),
+        "no_load_rate_min": _two_figures(a * 0.25, up=False),
+        "no_load_rate_max": _two_figures(max(a * 2.0, 1.0), up=True),
+        "load_rate_min": _two_figures(b * 0.25, up=False),
+        "load_rate_max": _two_figures(max(b * 2.0, 1.0), up=True),
     })
 
 
@@ -133,8 +135,10 @@ def robustness_page(
     tornado_boxes: dict[str, str] | None = None,
 ) -> RobustnessPage:
     """Break-even, rate map (when ``rate_map`` is given; with no range in it, over readable
-    default ranges) and tornado (when ``tornado`` is given) for a lot, and a Monte Carlo run: ``run_id`` if given (it must be this lot's), else the lot's
-    latest. A section that cannot be computed carries its reason instead of its result."""
+    default ranges) and tornado (when ``tornado`` is given) for a lot, and a Monte Carlo run:
+    ``run_id`` if given (shown only if it is this lot's), else the lot's latest. A section that
+    cannot be computed carries its reason instead of its result; ``tornado_boxes`` maps an input
+    the service refuses to the box its message goes beside."""
     lot = get_lot(session, lot_id)
     page = RobustnessPage(_facts(lot))
     try:

@@ -37,5 +37,7 @@ def test_two_buyers_get_their_own_token_and_name(sqlite_url):
         assert first_token in page_one and second_token not in page_one
         assert second_token in page_two and first_token not in page_two
         assert "second-buyer" in page_two and "second-buyer" not in page_one
+        # The token also travels in the htmx headers of the page; it must be the viewer's own there too.
+        assert f'"X-CSRF-Token": "{second_token}"' in page_two.replace("&#34;", '"').replace("&quot;", '"')
         api.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Arrived Later"))
         assert "Arrived Later" in second.get(f"/lots/{lot_id}").text

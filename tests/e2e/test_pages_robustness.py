@@ -153,10 +153,13 @@ def test_the_rate_map_form_redraws_in_place_and_names_a_bad_range(page_client):
     assert partial.text.lstrip().startswith('<section id="rate-map"') and "<html" not in partial.text
     chart = _charts(partial.text)[0]
     assert chart["xAxis"][0]["data"][-1] == 20000.0 and len(chart["yAxis"][0]["data"]) == 21
-    bad = page_client.get(f"/lots/{lot_id}/robustness/rate-map", params=query | {"no_load_rate_max": "0", "steps": "400"})
+    too_fine = page_client.get(f"/lots/{lot_id}/robustness/rate-map", params=query | {"steps": "400"})
+    assert too_fine.status_code == 422
+    assert error_beside(too_fine.text, "rm-steps") == "Must be 120 or less."
+    bad = page_client.get(f"/lots/{lot_id}/robustness/rate-map", params=query | {"no_load_rate_max": "0"})
     assert bad.status_code == 422
     assert "<html" in bad.text  # without htmx, the whole page
-    assert error_beside(bad.text, "rm-steps") == "Must be 120 or less."
+    assert error_beside(bad.text, "rm-no_load_rate_max") == "Must be more than the lowest rate."
     assert "data-chart='" not in bad.text.split('id="rate-map"')[1].split("</section>")[0]
 
 
@@ -247,7 +250,8 @@ def test_a_run_started_without_htmx_redirects_to_the_page_that_shows_it(page_cli
     run_id = int(re.search(r"\?run=(\d+)#monte-carlo$", location).group(1))
     _wait(page_client, run_id)
     assert f"Result of run {run_id}: 500 draws" in _text(page_client.get(location).text)
-    assert page_client.get(f"/monte-carlo-runs/{run_id}/progress", follow_redirects=False).headers["location"] == location
+    progress = page_client.get(f"/monte-carlo-runs/{run_id}/progress", follow_redirects=False)
+    assert progress.headers["location"] == location  # a browser without htmx is sent to the page
 
 
 def test_a_run_can_be_cancelled_or_reports_its_final_state(page_client):
@@ -296,7 +300,8 @@ def test_the_forms_send_only_what_each_distribution_reads():
     assert set(request.inputs) == {"energy_price_per_kwh", "discount_rate_pct", "load_growth_pct"}
     assert request.inputs["energy_price_per_kwh"].model_dump(exclude_none=True) == {
         "dist": "triangular", "low": 0.75, "mode": 1.0, "high": 1.25}
-    assert request.inputs["discount_rate_pct"].model_dump(exclude_none=True) == {"dist": "uniform", "low": 4.0, "high": 8.0}
+    assert request.inputs["discount_rate_pct"].model_dump(exclude_none=True) == {
+        "dist": "uniform", "low": 4.0, "high": 8.0}
     ranges, errors = tornado_request(tornado_defaults(base))
     assert errors == {} and ranges.ranges["discount_rate_pct"] == [4.0, 8.0] and ranges.ranges["years"] == [24.0, 36.0]
     assert tornado_request({"years_low": "", "years_high": ""})[0].ranges == {}  # both empty: the service's default
