@@ -158,6 +158,7 @@ def test_entering_a_certificate_on_an_awarded_lot(page_client):
     assert stored[0]["penalty"] == pytest.approx(210.0, abs=0.5)
     assert "Works test bay (invented)" in page and "210" in words
     assert "1 of 200 ordered" in words and "IEC 60076-1" in words
+    assert "1 of 200 ordered" in _text(page_client.get(f"/lots/{lot_id}").text)  # the lot page's summary follows
     chart = _charts(page)[0]
     assert {s["id"] for s in chart["series"]} >= {"no-load", "load", "guarantee-no-load", "limit-load"}
     # A viewer reads the same page without the forms.
