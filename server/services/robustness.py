@@ -4,6 +4,7 @@ cost basis inputs, and Monte Carlo runs (in the request, or in the background)."
 from __future__ import annotations
 
 import threading
+from datetime import UTC, timedelta
 from dataclasses import dataclass
 from typing import Any
 
@@ -262,8 +263,17 @@ def _run_in_background(database, run_id: int) -> None:
         session.commit()
 
 
+# A run still "running" after this long lost its worker (a restart, a crash): it is marked failed.
+STALE_RUN = timedelta(minutes=30)
+
+
 def get_run(session: Session, run_id: int) -> MonteCarloRun:
-    return get_or_404(session, MonteCarloRun, run_id, "Monte Carlo run")
+    run = get_or_404(session, MonteCarloRun, run_id, "Monte Carlo run")
+    started = run.created_at if run.created_at.tzinfo else run.created_at.replace(tzinfo=UTC)
+    if run.status == "running" and utcnow() - started > STALE_RUN:
+        run.status, run.message = "failed", "The process running this stopped before it finished; start it again."
+        commit(session, "Monte Carlo run")
+    return run
 
 
 def cancel_run(session: Session, run_id: int) -> MonteCarloRun:

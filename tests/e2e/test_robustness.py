@@ -150,3 +150,25 @@ def test_award_report_shows_the_robustness_section(client):
     assert page.status_code == 200
     assert "How sure is this ranking" in page.text and "Monte Carlo at award" in page.text
     assert "2,000 draws" in page.text
+
+
+def test_a_run_that_lost_its_worker_is_reported_failed(client, db_url):
+    from datetime import timedelta
+
+    from sqlalchemy import create_engine, text
+
+    from server.storage.models import utcnow
+
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+    engine = create_engine(db_url)
+    try:
+        with engine.begin() as conn:
+            conn.execute(text(
+                "INSERT INTO monte_carlo_runs (lot_id, created_by, created_at, status, progress, cancel_requested, "
+                "request, message) VALUES (:lot, 'tester', :at, 'running', 0.4, false, '{}', '')"),
+                {"lot": lot_id, "at": utcnow() - timedelta(hours=2)})
+            run_id = conn.execute(text("SELECT max(id) FROM monte_carlo_runs")).scalar()
+    finally:
+        engine.dispose()
+    state = client.get(f"/api/v1/monte-carlo-runs/{run_id}").json()
+    assert state["status"] == "failed" and "start it again" in state["message"]
