@@ -35,7 +35,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
+        await app.state.db.open_async()
         yield
+        await app.state.db.close_async()
         app.state.db.dispose()
 
     app = FastAPI(

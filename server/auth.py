@@ -12,9 +12,11 @@ from fastapi import Depends, Request
 from starlette.concurrency import run_in_threadpool
 
 from server.errors import ServiceError
-from server.security import CSRF_FIELD, CSRF_HEADER, SESSION_COOKIE, same_secret, unsign_cookie
+from server.security import CSRF_FIELD, CSRF_HEADER, SESSION_COOKIE, same_secret, token_hash, unsign_cookie
 from server.services import users
+from server.storage import generation
 from server.storage.audit import Actor
+from server.storage.database import Database
 from server.storage.models import ROLES
 
 SAFE_METHODS = {"GET", "HEAD", "OPTIONS"}
@@ -59,6 +61,25 @@ async def _check_csrf(request: Request, principal: users.Principal) -> None:
         raise Forbidden("The form's security token is missing or out of date; reload the page and try again.")
 
 
+async def _resolve(db: Database, settings, token: str | None, kinds: tuple[str, ...]):
+    """The principal and the data generation, read in one round trip (``Database.read_row_async``);
+    a session's last-seen time is written at most once a minute."""
+    if not token:
+        return None, None
+    row = await db.read_row_async(users.RESOLVE, {"token_hash": token_hash(token)})
+    if row is None:
+        return None, None
+    principal, stale = users.principal_from_row(row, settings, kinds)
+    if stale:
+        await run_in_threadpool(_touch, db, principal.session_id)
+    return principal, generation.generation_value(row[-2], row[-1])
+
+
+def _touch(db: Database, session_id: int) -> None:
+    with db.session() as session:
+        users.touch(session, session_id)
+
+
 class Requires:
     """A logged-in user who holds one of ``roles`` (any role at all when none are named)."""
 
@@ -75,10 +96,8 @@ class Requires:
         settings = request.app.state.settings
         token = _bearer(request)
         cookie = None if token else unsign_cookie(settings.secret_key, request.cookies.get(SESSION_COOKIE))
-        with request.app.state.db.session() as session:
-            principal = await run_in_threadpool(
-                users.resolve, session, settings, token or cookie, ("api",) if token else ("browser",)
-            )
+        principal, generation = await _resolve(
+            request.app.state.db, settings, token or cookie, ("api",) if token else ("browser",))
         if principal is None:
             raise NotAuthenticated("Log in first." if not token else "The token is missing, expired or revoked.")
         if principal.kind == "browser" and request.method not in SAFE_METHODS:
@@ -88,6 +107,7 @@ class Requires:
             raise Forbidden(f"This needs the {needed} role; {principal.username} does not hold it.")
         request.state.principal = principal
         request.state.actor = Actor(principal.username, client_address(request), principal.user_id)
+        request.state.generation = generation
         return principal
 
 

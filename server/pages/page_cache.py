@@ -2,12 +2,14 @@
 
 A page is rendered once for a set of roles with placeholders for the user name and the form
 token, then served to every viewer with those roles until the data generation moves
-(``server.storage.generation``). Reading a lot page then costs a query and a string replace.
+(``server.storage.generation``). Reading a lot page then costs no query of its own (the
+generation comes with the user's session, see ``server.auth``) and a replace.
 """
 
 from __future__ import annotations
 
 import dataclasses
+import re
 import secrets
 from collections.abc import Callable
 from html import escape
@@ -15,31 +17,39 @@ from html import escape
 from fastapi import Request
 from fastapi.responses import HTMLResponse
 from sqlalchemy.orm import Session
+from starlette.concurrency import run_in_threadpool
 
 from server.storage.generation import GenerationCache
 
 # Plain letters and digits, so that HTML escaping and JSON encoding (the token also sits in the
-# page's hx-headers attribute) leave them unchanged and one replace finds every copy.
+# page's hx-headers attribute) leave them unchanged and one pattern finds every copy.
 _USER = "viewername" + secrets.token_hex(12)
 _TOKEN = "viewertoken" + secrets.token_hex(12)
+_PLACEHOLDERS = re.compile(f"({_USER}|{_TOKEN})".encode())
 _PAGES = GenerationCache(size=128)
 
 
-def cached_page(request: Request, session: Session, key: tuple, render: Callable[[], HTMLResponse]) -> HTMLResponse:
+async def cached_page(
+    request: Request, session: Session, key: tuple, render: Callable[[], HTMLResponse]
+) -> HTMLResponse:
+    """The page for ``key``, rendered in a worker thread only when this generation has not
+    been rendered yet for the viewer's roles; a hit runs on the event loop with no I/O."""
     principal = getattr(request.state, "principal", None)
     if principal is None:
-        return render()
+        return await run_in_threadpool(render)
     roles = tuple(sorted(principal.roles))
+    full_key = (key, roles, bool(request.headers.get("HX-Request")))
 
-    def render_for_roles() -> tuple[int, str]:
+    def render_for_roles() -> tuple[int, list[bytes]]:
         request.state.principal = dataclasses.replace(principal, username=_USER, csrf_token=_TOKEN)
         try:
             response = render()
         finally:
             request.state.principal = principal
-        return response.status_code, response.body.decode()
+        # Split at the placeholders (kept at the odd places), so a viewer's page is one join.
+        return response.status_code, _PLACEHOLDERS.split(bytes(response.body))
 
-    status, body = _PAGES.get_or_compute(session, (key, roles, bool(request.headers.get("HX-Request"))),
-                                         render_for_roles)
-    body = body.replace(_USER, escape(principal.username)).replace(_TOKEN, principal.csrf_token or "")
+    status, parts = await _PAGES.get_or_compute_async(session, full_key, render_for_roles)
+    own = {_USER.encode(): escape(principal.username).encode(), _TOKEN.encode(): (principal.csrf_token or "").encode()}
+    body = b"".join(own[part] if k % 2 else part for k, part in enumerate(parts))
     return HTMLResponse(body, status_code=status)

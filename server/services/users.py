@@ -2,17 +2,18 @@
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
-from sqlalchemy import func, select, update
+from sqlalchemy import bindparam, func, select, update
 from sqlalchemy.orm import Session
 
 from server.errors import InvalidField, NotFound, ServiceError
 from server.security import hash_password, new_token, token_hash, verify_password
 from server.services.common import check_version, commit, get_or_404
 from server.settings import Settings
-from server.storage import audit
+from server.storage import audit, generation
 from server.storage.models import ROLES, AuthSession, LoginAttempt, User, utcnow
 
 MIN_PASSWORD_LENGTH = 10
@@ -168,31 +169,59 @@ def log_in(session: Session, settings: Settings, username: str, password: str, a
     return token, stored
 
 
+# Who holds a token, and the data generation, in one statement built once (composing it cost
+# more than running it). Columns as ``principal_from_row`` takes them.
+RESOLVE = (
+    select(AuthSession.id, AuthSession.kind, AuthSession.csrf_token, AuthSession.revoked_at, AuthSession.expires_at,
+           AuthSession.last_seen_at, User.id, User.username, User.roles, User.disabled,
+           *generation.generation_columns())
+    .join(User, User.id == AuthSession.user_id)
+    .where(AuthSession.token_hash == bindparam("token_hash"))
+)
+
+
 def resolve(session: Session, settings: Settings, token: str | None, kinds: tuple[str, ...]) -> Principal | None:
     """The principal behind a raw token, or None when it is unknown, expired, idle or revoked."""
     if not token:
         return None
-    stored = session.scalar(select(AuthSession).where(AuthSession.token_hash == token_hash(token)))
-    if stored is None or stored.kind not in kinds or stored.revoked_at is not None:
+    row = session.execute(RESOLVE, {"token_hash": token_hash(token)}).first()
+    if row is None:
         return None
+    generation.remember(session, generation.generation_value(row[-2], row[-1]))
+    principal, stale = principal_from_row(tuple(row), settings, kinds)
+    if stale:
+        touch(session, principal.session_id)
+    return principal
+
+
+def principal_from_row(row: tuple, settings: Settings, kinds: tuple[str, ...]) -> tuple[Principal | None, bool]:
+    """The principal of a ``RESOLVE`` row (values as SQLAlchemy or the driver gives them), or
+    None when the session is of another kind, revoked, expired or idle, or the user disabled;
+    and whether its last-seen time is old enough to be written again (``touch``)."""
+    (session_id, kind, csrf_token, revoked_at, expires_at, last_seen_at, user_id, username, roles, disabled,
+     *_generation) = row
+    if kind not in kinds or revoked_at is not None or disabled:
+        return None, False
     now = utcnow()
-    expires_at = _aware(stored.expires_at)
-    last_seen = _aware(stored.last_seen_at)
-    if now >= expires_at:
-        return None
-    if stored.kind == "browser" and now - last_seen > timedelta(minutes=settings.session_idle_minutes):
-        return None
-    user = stored.user
-    if user.disabled:
-        return None
-    if now - last_seen > _TOUCH_EVERY:
-        stored.last_seen_at = now
-        session.commit()
-    return Principal(user.id, user.username, frozenset(user.roles), stored.id, stored.kind, stored.csrf_token)
+    last_seen = _aware(last_seen_at)
+    if now >= _aware(expires_at):
+        return None, False
+    if kind == "browser" and now - last_seen > timedelta(minutes=settings.session_idle_minutes):
+        return None, False
+    roles = json.loads(roles) if isinstance(roles, str) else roles
+    return Principal(user_id, username, frozenset(roles), session_id, kind, csrf_token), now - last_seen > _TOUCH_EVERY
 
 
-def _aware(moment: datetime) -> datetime:
-    # SQLite hands back naive datetimes; every stored time is UTC.
+def touch(session: Session, session_id: int) -> None:
+    """Write a session's last-seen time (its idle clock restarts)."""
+    session.execute(update(AuthSession).where(AuthSession.id == session_id).values(last_seen_at=utcnow()))
+    session.commit()
+
+
+def _aware(moment: datetime | str) -> datetime:
+    # SQLite keeps times as naive text; every stored time is UTC.
+    if isinstance(moment, str):
+        moment = datetime.fromisoformat(moment)
     return moment if moment.tzinfo else moment.replace(tzinfo=UTC)
 
 
