@@ -5,8 +5,10 @@ objects one by one."""
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import date
+from itertools import compress
 from typing import Any
 
 import numpy as np
@@ -37,7 +39,7 @@ from server.services.compliance import all_tables
 from server.services.cost_bases import get_cost_basis, parse_inputs
 from server.storage import audit
 from server.storage.models import AppDocument, FleetImport, FleetUnit, LoadShape, utcnow
-from server.tabular import gc_paused, read_table, rows_text
+from server.tabular import gc_paused, read_table_chunks, rows_text
 
 TYPICAL_LOSSES_KEY = "typical-losses"
 COLUMNS = ("asset_id", "site", "region", "rating_kva", "phases", "insulation", "year_installed",
@@ -108,30 +110,160 @@ class _Problems:
                 for (column, message), rows in self.by_key.items()]
 
 
-def _numbers(values, column: str, problems: _Problems) -> np.ndarray:
-    """Floats with NaN for blank cells; a text cell is a problem naming its row."""
+# The file is read a chunk of rows at a time and each chunk's columns are converted whole (numpy,
+# sets, str methods mapped in C) while its cells are still in the processor's cache; the checks
+# then run on whole columns. A loop over rows runs only to name the rows of a problem found.
+_ROWS_PER_CHUNK = 500
+
+
+def _numbers(values: Sequence[Any], first_row: int) -> tuple[np.ndarray, list[int]]:
+    """Floats with NaN for blank (empty or None) cells, and the spreadsheet rows of cells that are
+    not numbers, ``first_row`` being the row of the first cell."""
     try:
-        out = np.array(values, dtype=float)  # the common case: every cell filled with a number
-        problems.add_mask(column, "not a finite number", np.isinf(out))
-        return out
+        return np.array(values, dtype=float), []  # the common case: every cell filled with a number
     except (TypeError, ValueError):
         pass
+    if values.count("") == len(values):  # a column left empty
+        return np.full(len(values), np.nan), []
     cells = np.array(values, dtype=object)
-    cells[(cells == "") | (cells == None)] = "nan"  # noqa: E711 - element-wise comparison
+    cells[cells == ""] = math.nan  # None becomes NaN as it is
     try:
-        out = cells.astype(float)
+        return cells.astype(float), []  # float() of every cell in one call
     except (TypeError, ValueError):
-        out = np.full(len(cells), np.nan)
-        bad = []
-        for k, value in enumerate(cells):
-            try:
-                out[k] = float(value)
-            except (TypeError, ValueError):
-                if not (isinstance(value, str) and not value.strip()):
-                    bad.append(k + 2)
-        problems.add(column, "not a number", bad)
-    problems.add_mask(column, "not a finite number", np.isinf(out))
-    return out
+        pass
+    out = np.full(len(cells), np.nan)
+    bad = []
+    for k, value in enumerate(cells):
+        try:
+            out[k] = float(value)
+        except (TypeError, ValueError):
+            if not (isinstance(value, str) and not value.strip()):
+                bad.append(first_row + k)
+    return out, bad
+
+
+def _texts(values: Sequence[Any], max_chars: int | None = None) -> list[str]:
+    """Cells as stripped text ('' for a blank), cut to ``max_chars``."""
+    try:
+        texts = list(map(str.strip, values))  # CSV cells are all strings
+    except TypeError:  # a workbook's numbers, dates and empty cells
+        texts = ["" if v is None else str(v).strip() for v in values]
+    if max_chars is not None and texts and max(map(len, texts)) > max_chars:
+        texts = [t[:max_chars] for t in texts]
+    return texts
+
+
+class _Columns:
+    """The file's columns, gathered a chunk of rows at a time: numbers as float arrays, text
+    stripped, insulation as its names."""
+
+    def __init__(self, header: list[str]) -> None:
+        self.header = header
+        self.rows = 0
+        self.numbers: dict[str, list[np.ndarray]] = {c: [] for c in NUMERIC if c in header}
+        self.not_numbers: dict[str, list[int]] = {c: [] for c in NUMERIC}
+        self.texts: dict[str, list[str]] = {c: [] for c in ("site", "region") if c in header}
+        self.asset_ids: list[str] = []
+        self.distinct_ids: set[str] = set()
+        self.longest_id = 0
+        self.insulation: list[str] = []
+        self.bad_insulation: list[int] = []
+        self.load_shape: list[Any] = []
+        self._insulation_of: dict[Any, str] = {}
+
+    def add(self, rows: list[list[Any]]) -> None:
+        width = len(self.header)
+        try:
+            columns = list(zip(*rows, strict=True))
+        except ValueError:
+            columns = []
+        if len(columns) != width:  # rows shorter or longer than the header: pad or cut each one
+            columns = list(zip(*[(list(r) + [None] * width)[:width] for r in rows], strict=True))
+        cells = dict(zip(self.header, columns))
+        first = self.rows + 2  # the spreadsheet row of the chunk's first row, the header being row 1
+        for column, parts in self.numbers.items():
+            values, bad = _numbers(cells[column], first)
+            parts.append(values)
+            self.not_numbers[column].extend(bad)
+        self._add_asset_ids(cells["asset_id"])
+        for column, texts in self.texts.items():
+            texts.extend(_texts(cells[column], 120))
+        if "insulation" in cells:
+            self._add_insulation(cells["insulation"], first)
+        if "load_shape" in cells:
+            self.load_shape.extend(cells["load_shape"])
+        self.rows += len(rows)
+
+    def _add_asset_ids(self, values: Sequence[Any]) -> None:
+        ids = _texts(values)
+        # A spreadsheet gives a numeric id as a float (1234.0). One search of the joined ids spares
+        # the usual file, which has none, a test of every id.
+        if ".0\n" in "\n".join(ids) + "\n":
+            ids = [a[:-2] if a.endswith(".0") and a[:-2].isdigit() else a for a in ids]
+        self.asset_ids.extend(ids)
+        self.distinct_ids.update(ids)
+        self.longest_id = max(self.longest_id, max(map(len, ids)))
+
+    def _add_insulation(self, values: Sequence[Any], first: int) -> None:
+        name_of = self._insulation_of  # worked out once per distinct cell; blank is liquid
+        distinct = set(values)
+        for v in distinct.difference(name_of):
+            name_of[v] = "liquid" if v in (None, "") else str(v).strip().lower()
+        bad = {v for v in distinct if name_of[v] not in ("liquid", "dry")}
+        if bad:
+            self.bad_insulation.extend(first + k for k, v in enumerate(values) if v in bad)
+        self.insulation.extend(map(name_of.__getitem__, values))
+
+
+def _check_asset_ids(columns: _Columns, problems: _Problems) -> None:
+    ids = columns.asset_ids
+    if "" in columns.distinct_ids:
+        problems.add("asset_id", "missing asset id", [k + 2 for k, a in enumerate(ids) if not a])
+    if len(columns.distinct_ids) < len(ids):
+        seen: set[str] = set()
+        duplicates = []
+        for k, a in enumerate(ids):
+            if a in seen:
+                duplicates.append(k + 2)
+            else:
+                seen.add(a)
+        problems.add("asset_id", "asset id appears twice", duplicates)
+    if columns.longest_id > 64:
+        problems.add("asset_id", "longer than 64 characters", [k + 2 for k, a in enumerate(ids) if len(a) > 64])
+
+
+_NO_SHAPE = -1
+_UNKNOWN_SHAPE = -2
+
+
+def _load_shapes(session: Session, values: list[Any], loss_factor: np.ndarray, problems: _Problems) -> np.ndarray:
+    """Load shape ids of the rows that name a shape and give no loss factor (``_NO_SHAPE`` for the
+    others); the shape's loss factor is filled into ``loss_factor``."""
+    n = len(values)
+    shape_ids = np.full(n, _NO_SHAPE, dtype=np.int64)
+    names = set(values) - {None, ""}
+    if not names:
+        return shape_ids
+    shapes = {name.casefold(): (shape_id, factor) for name, shape_id, factor
+              in session.execute(select(LoadShape.name, LoadShape.id, LoadShape.loss_factor))}
+    id_of: dict[Any, int] = {None: _NO_SHAPE, "": _NO_SHAPE}
+    factor_of: dict[Any, float] = {None: math.nan, "": math.nan}
+    for name in names:
+        id_of[name], factor_of[name] = shapes.get(str(name).strip().casefold(), (_UNKNOWN_SHAPE, math.nan))
+    if all(isinstance(name, str) for name in names):
+        ids = np.fromiter(map(id_of.__getitem__, values), np.int64, n)
+        factors = np.fromiter(map(factor_of.__getitem__, values), float, n)
+    else:  # a workbook's 1 and 1.0 are one key of a dict but name different shapes
+        found = [shapes.get(str(v).strip().casefold(), (_UNKNOWN_SHAPE, math.nan)) if v not in (None, "")
+                 else (_NO_SHAPE, math.nan) for v in values]
+        ids = np.array([f[0] for f in found], dtype=np.int64)
+        factors = np.array([f[1] for f in found], dtype=float)
+    wanted = np.isnan(loss_factor)
+    problems.add_mask("load_shape", "no load shape of that name", wanted & (ids == _UNKNOWN_SHAPE))
+    use = wanted & (ids >= 0)
+    shape_ids[use] = ids[use]
+    loss_factor[use] = factors[use]
+    return shape_ids
 
 
 def parse_inventory(session: Session, filename: str, content: bytes, default_loss_factor: float | None = None) -> ParsedInventory:
@@ -141,7 +273,7 @@ def parse_inventory(session: Session, filename: str, content: bytes, default_los
 
 
 def _parse_inventory(session: Session, filename: str, content: bytes, default_loss_factor: float | None) -> ParsedInventory:
-    header, rows = read_table(filename, content)
+    header, chunks = read_table_chunks(filename, content, _ROWS_PER_CHUNK)
     unknown = [c for c in header if c and c not in COLUMNS]
     missing = [c for c in ("asset_id", "rating_kva", "year_installed") if c not in header]
     if unknown or missing:
@@ -150,27 +282,17 @@ def _parse_inventory(session: Session, filename: str, content: bytes, default_lo
             [{"rows": [1], "column": c, "message": "unknown column"} for c in unknown]
             + [{"rows": [1], "column": c, "message": "required column missing"} for c in missing],
         )
-    n = len(rows)
-    width = len(header)
-    if any(len(r) != width for r in rows):
-        rows = [(list(r) + [None] * width)[:width] for r in rows]
-    transposed = list(zip(*rows, strict=True)) if rows else [()] * width
-    raw = {name: transposed[i] for i, name in enumerate(header)}
+    columns = _Columns(header)
+    for chunk in chunks:
+        columns.add(chunk)
+    n = columns.rows
     problems = _Problems()
-    num = {c: _numbers(raw[c], c, problems) if c in raw else np.full(n, np.nan) for c in NUMERIC}
-
-    asset_ids = [("" if v is None else str(v).strip()) for v in raw["asset_id"]]
-    asset_ids = [a[:-2] if a.endswith(".0") and a[:-2].isdigit() else a for a in asset_ids]
-    problems.add("asset_id", "missing asset id", [k + 2 for k, a in enumerate(asset_ids) if not a])
-    seen: dict[str, int] = {}
-    duplicates = []
-    for k, a in enumerate(asset_ids):
-        if a in seen:
-            duplicates.append(k + 2)
-        else:
-            seen[a] = k + 2
-    problems.add("asset_id", "asset id appears twice", duplicates)
-    problems.add("asset_id", "longer than 64 characters", [k + 2 for k, a in enumerate(asset_ids) if len(a) > 64])
+    num = {}
+    for c in NUMERIC:
+        num[c] = np.concatenate(columns.numbers[c]) if columns.numbers.get(c) else np.full(n, np.nan)
+        problems.add(c, "not a number", columns.not_numbers[c])
+        problems.add_mask(c, "not a finite number", np.isinf(num[c]))
+    _check_asset_ids(columns, problems)
 
     rating = num["rating_kva"]
     problems.add_mask("rating_kva", "rating must be above 0 and at most 2,000,000 kVA", ~((rating > 0) & (rating <= 2e6)))
@@ -180,10 +302,9 @@ def _parse_inventory(session: Session, filename: str, content: bytes, default_lo
     this_year = date.today().year
     problems.add_mask("year_installed", f"year must be between 1900 and {this_year}",
                       ~((year >= 1900) & (year <= this_year)))
-    insulation_text = [("liquid" if v in (None, "") else str(v).strip().lower()) for v in raw.get("insulation", [None] * n)]
-    bad_ins = [k + 2 for k, v in enumerate(insulation_text) if v not in ("liquid", "dry")]
-    problems.add("insulation", "insulation must be liquid or dry", bad_ins)
-    insulation = np.array([DRY if v == "dry" else LIQUID for v in insulation_text], dtype=np.int64)
+    problems.add("insulation", "insulation must be liquid or dry", columns.bad_insulation)
+    insulation_names = columns.insulation if "insulation" in header else ["liquid"] * n
+    insulation = np.where(np.array(insulation_names, dtype=object) == "dry", DRY, LIQUID)
     for column in ("no_load_loss_w", "load_loss_w"):
         problems.add_mask(column, "loss must be 0 or more and at most 10 MW", (num[column] < 0) | (num[column] > 1e7))
 
@@ -195,19 +316,10 @@ def _parse_inventory(session: Session, filename: str, content: bytes, default_lo
     problems.add_mask("peak_load_pu", "peak loading must be between 0 and 5 pu", (peak_pu < 0) | (peak_pu > 5))
 
     loss_factor = num["loss_factor"].copy()
-    shape_ids = np.full(n, -1, dtype=np.int64)
-    if "load_shape" in raw:
-        shapes = {s.name.casefold(): (s.id, s.loss_factor) for s in session.scalars(select(LoadShape))}
-        unknown_shape = []
-        for k, name in enumerate(raw["load_shape"]):
-            if name in (None, "") or not np.isnan(loss_factor[k]):
-                continue
-            found = shapes.get(str(name).strip().casefold())
-            if found is None:
-                unknown_shape.append(k + 2)
-            else:
-                shape_ids[k], loss_factor[k] = found
-        problems.add("load_shape", "no load shape of that name", unknown_shape)
+    if "load_shape" in header:
+        shape_ids = _load_shapes(session, columns.load_shape, loss_factor, problems)
+    else:
+        shape_ids = np.full(n, _NO_SHAPE, dtype=np.int64)
     if default_loss_factor is not None:
         loss_factor = np.where(np.isnan(loss_factor), default_loss_factor, loss_factor)
     problems.add_mask("loss_factor", "needs loss_factor or a known load_shape", np.isnan(loss_factor))
@@ -229,24 +341,29 @@ def _parse_inventory(session: Session, filename: str, content: bytes, default_lo
         p0[need] = np.where(miss0[need], est0, p0[need])
         pk[need] = np.where(missk[need], estk, pk[need])
     parsed.estimated_no_load, parsed.estimated_load = int(miss0.sum()), int(missk.sum())
-    site = [("" if v is None else str(v).strip()[:120]) for v in raw.get("site", [None] * n)]
-    region = [("" if v is None else str(v).strip()[:120]) for v in raw.get("region", [None] * n)]
     parsed.columns = {
-        "asset_id": asset_ids, "site": site, "region": region, "rating_kva": rating, "phases": phases.astype(int),
-        "insulation": ["dry" if v == DRY else "liquid" for v in insulation], "year_installed": year.astype(int),
-        "no_load_loss_w": p0, "load_loss_w": pk, "no_load_loss_estimated": miss0, "load_loss_estimated": missk,
-        "peak_load_pu": peak_pu, "loss_factor": loss_factor, "load_shape_id": shape_ids,
+        "asset_id": columns.asset_ids, "site": columns.texts.get("site", [""] * n),
+        "region": columns.texts.get("region", [""] * n), "rating_kva": rating, "phases": phases.astype(int),
+        "insulation": insulation_names, "year_installed": year.astype(int), "no_load_loss_w": p0,
+        "load_loss_w": pk, "no_load_loss_estimated": miss0, "load_loss_estimated": missk, "peak_load_pu": peak_pu,
+        "loss_factor": loss_factor, "load_shape_id": shape_ids,
     }
     return parsed
 
 
-def _existing(session: Session) -> dict[str, tuple[int, int]]:
-    return {a: (i, v) for a, i, v in session.execute(select(FleetUnit.asset_id, FleetUnit.id, FleetUnit.version))}
+def _existing(session: Session) -> set[str]:
+    """The asset ids already in the fleet, read through the driver's cursor (a re-import reads them all)."""
+    cursor = session.connection().connection.driver_connection.cursor()
+    try:
+        cursor.execute("SELECT asset_id FROM fleet_units")
+        return {asset_id for asset_id, in cursor.fetchall()}
+    finally:
+        cursor.close()
 
 
-def _summary(parsed: ParsedInventory, existing: dict) -> dict[str, Any]:
+def _summary(parsed: ParsedInventory, existing: set[str]) -> dict[str, Any]:
     ids = parsed.columns.get("asset_id", [])
-    updates = sum(1 for a in ids if a in existing)
+    updates = sum(map(existing.__contains__, ids)) if existing else 0
     return {"rows": parsed.rows, "problems": parsed.problems[:200], "problem_count": len(parsed.problems),
             "creates": len(ids) - updates, "updates": updates, "estimated_no_load": parsed.estimated_no_load,
             "estimated_load": parsed.estimated_load, "can_commit": not parsed.problems and parsed.rows > 0}
@@ -254,15 +371,18 @@ def _summary(parsed: ParsedInventory, existing: dict) -> dict[str, Any]:
 
 def stage_import(session: Session, filename: str, content: bytes, default_loss_factor: float | None = None,
                  commit_now: bool = False) -> FleetImport:
-    """Check the file and keep it for a preview; with ``commit_now`` also write it when clean."""
+    """Check the file and keep it for a preview; with ``commit_now`` also write it when clean,
+    the file and its units in one transaction."""
     parsed = parse_inventory(session, filename, content, default_loss_factor)
-    summary = _summary(parsed, _existing(session)) | {"default_loss_factor": default_loss_factor}
+    existing = _existing(session)
+    summary = _summary(parsed, existing) | {"default_loss_factor": default_loss_factor}
     staged = FleetImport(created_by=audit.get_actor(session).username, filename=(filename or "upload")[:200],
                          content=content, summary=summary)
     session.add(staged)
-    commit(session, "fleet import")
     if commit_now and summary["can_commit"]:
-        return commit_import(session, staged.id, parsed)
+        _store(session, staged, parsed, existing)
+    else:
+        commit(session, "fleet import")
     return staged
 
 
@@ -270,47 +390,29 @@ def get_import(session: Session, import_id: int) -> FleetImport:
     return get_or_404(session, FleetImport, import_id, "Fleet import")
 
 
-def commit_import(session: Session, import_id: int, parsed: ParsedInventory | None = None) -> FleetImport:
-    """Write every row (insert new assets, update known ones) in one transaction, or nothing.
-
-    ``parsed`` saves reading the file again when it was just checked in this request.
-    """
+def commit_import(session: Session, import_id: int) -> FleetImport:
+    """Write every row of a staged file (insert new assets, update known ones) in one
+    transaction, or nothing."""
     staged = get_import(session, import_id)
     if staged.committed_at is not None:
         raise Conflict(f"Fleet import {staged.id} was committed already.")
-    if parsed is None:
-        parsed = parse_inventory(session, staged.filename, staged.content, staged.summary.get("default_loss_factor"))
+    parsed = parse_inventory(session, staged.filename, staged.content, staged.summary.get("default_loss_factor"))
     if parsed.problems:
         raise ImportRefused("The file has problems; nothing was stored.", parsed.problems)
-    with gc_paused():
-        inserted, updated = _write_units(session, parsed)
-    staged.committed_at = utcnow()
-    audit.record(session, "import", "fleet", staged.id,
-                 f"imported {inserted} new and {updated} updated fleet units from {staged.filename}")
-    commit(session, "fleet import")
+    _store(session, staged, parsed, _existing(session))
     return staged
 
 
-def _write_units(session: Session, parsed: ParsedInventory) -> tuple[int, int]:
-    existing = _existing(session)
-    cols = parsed.columns
-    now = utcnow()
-    version = [existing[a][1] + 1 if a in existing else 1 for a in cols["asset_id"]]
-    shape = [v if v >= 0 else None for v in cols["load_shape_id"].tolist()]
-    # SQLite keeps times as text; converting once saves the driver's adapter a call per row.
-    stamp = now.replace(tzinfo=None).isoformat(" ") if session.connection().dialect.name == "sqlite" else now
-    values = list(zip(
-        cols["asset_id"], cols["site"], cols["region"], cols["rating_kva"].tolist(), cols["phases"].tolist(),
-        cols["insulation"], cols["year_installed"].tolist(), cols["no_load_loss_w"].tolist(),
-        cols["load_loss_w"].tolist(), cols["no_load_loss_estimated"].tolist(), cols["load_loss_estimated"].tolist(),
-        cols["peak_load_pu"].tolist(), cols["loss_factor"].tolist(), shape, version, [stamp] * len(version),
-        strict=True,
-    ))
-    known = [a in existing for a in cols["asset_id"]]
-    inserts = [v for v, k in zip(values, known, strict=True) if not k]
-    updates = [v for v, k in zip(values, known, strict=True) if k]
-    bulk_write(session, _UNIT_COLUMNS, inserts, updates)
-    return len(inserts), len(updates)
+def _store(session: Session, staged: FleetImport, parsed: ParsedInventory, existing: set[str]) -> None:
+    """Write the units, mark the import committed and record it; one commit."""
+    # Marked before the first flush, so that a new import's row (the whole file) is written once.
+    staged.committed_at = utcnow()
+    session.flush()  # the import's id, for the audit record
+    with gc_paused():
+        inserted, updated = _write_units(session, parsed, existing)
+    audit.record(session, "import", "fleet", staged.id,
+                 f"imported {inserted} new and {updated} updated fleet units from {staged.filename}")
+    commit(session, "fleet import")
 
 
 _UNIT_COLUMNS = ("asset_id", "site", "region", "rating_kva", "phases", "insulation", "year_installed",
@@ -318,23 +420,106 @@ _UNIT_COLUMNS = ("asset_id", "site", "region", "rating_kva", "phases", "insulati
                  "loss_factor", "load_shape_id", "version", "updated_at")
 
 
-def bulk_write(session: Session, columns: tuple[str, ...], inserts: list[tuple], updates: list[tuple]) -> None:
-    """Insert new units and update known ones (keyed by asset_id, the first column) through
-    the driver's executemany, inside the session's transaction: the ORM's per-row work
-    would cost many times the database's own."""
+def _write_units(session: Session, parsed: ParsedInventory, existing: set[str]) -> tuple[int, int]:
+    cols = parsed.columns
+    n = len(cols["asset_id"])
+    sqlite = session.connection().dialect.name == "sqlite"
+    # sqlite3 binds ints, floats and strings as they are but looks for an adapter for every bool.
+    flag = np.int64 if sqlite else bool
+    shapes = cols["load_shape_id"]
+    now = utcnow()
+    # SQLite keeps times as text; converting once saves the driver's adapter a call per row.
+    stamp = now.replace(tzinfo=None).isoformat(" ", "microseconds") if sqlite else now
+    values = [
+        cols["asset_id"], cols["site"], cols["region"], cols["rating_kva"].tolist(), cols["phases"].tolist(),
+        cols["insulation"], cols["year_installed"].tolist(), cols["no_load_loss_w"].tolist(),
+        cols["load_loss_w"].tolist(), cols["no_load_loss_estimated"].astype(flag).tolist(),
+        cols["load_loss_estimated"].astype(flag).tolist(), cols["peak_load_pu"].tolist(), cols["loss_factor"].tolist(),
+        [None] * n if (shapes == _NO_SHAPE).all() else np.where(shapes == _NO_SHAPE, None, shapes).tolist(),
+        [1] * n, [stamp] * n,
+    ]
+    known = list(map(existing.__contains__, cols["asset_id"])) if existing else []
+    if any(known):
+        new = [not k for k in known]
+        inserts = [list(compress(v, new)) for v in values]
+        updates = [list(compress(v, known)) for v in values]
+    else:
+        inserts, updates = values, [[] for _ in values]
+    bulk_write(session, _UNIT_COLUMNS, inserts, updates)
+    return len(inserts[0]), len(updates[0])
+
+
+_ROWS_PER_INSERT = 200  # on SQLite; anything from 50 to 800 takes the same time
+
+
+def bulk_write(session: Session, columns: tuple[str, ...], inserts: list[list], updates: list[list]) -> None:
+    """Insert new units and update known ones (keyed by asset_id, the first column) through the
+    driver, inside the session's transaction: the ORM's per-row work would cost many times the
+    database's own. ``inserts`` and ``updates`` hold one list per column; an update adds one to
+    the unit's version.
+
+    New units go in with COPY on PostgreSQL and, on SQLite, with INSERTs of a few hundred rows
+    each, which take about half the time of one INSERT per row. Known units are updated with
+    one UPDATE each on SQLite, and on PostgreSQL from a temporary table filled by COPY.
+    """
     connection = session.connection()
-    mark = "?" if connection.dialect.paramstyle == "qmark" else "%s"
     cursor = connection.connection.driver_connection.cursor()
     try:
-        if inserts:
-            cursor.executemany(
-                f"INSERT INTO fleet_units ({', '.join(columns)}) VALUES ({', '.join([mark] * len(columns))})", inserts)
-        if updates:
-            assignments = ", ".join(f"{c} = {mark}" for c in columns[1:])
-            cursor.executemany(f"UPDATE fleet_units SET {assignments} WHERE asset_id = {mark}",
-                               [(*row[1:], row[0]) for row in updates])
+        if inserts and inserts[0]:
+            if connection.dialect.name == "sqlite":
+                _insert_sqlite(cursor, columns, inserts)
+            else:
+                _insert_copy(cursor, columns, inserts)
+        if updates and updates[0]:
+            changed = [(c, v) for c, v in zip(columns, updates, strict=True) if c != "version"]
+            if connection.dialect.name == "sqlite":
+                _update_sqlite(cursor, changed)
+            else:
+                _update_copy(cursor, changed)
     finally:
         cursor.close()
+
+
+def _insert_sqlite(cursor: Any, columns: tuple[str, ...], values: list[list]) -> None:
+    # A column with no value in any row is left out (NULL): binding None costs an adapter look-up.
+    kept = [(c, v) for c, v in zip(columns, values, strict=True) if not (v[0] is None and v.count(None) == len(v))]
+    width = len(kept)
+    flat: list[Any] = [None] * (len(kept[0][1]) * width)
+    for j, (_, v) in enumerate(kept):
+        flat[j::width] = v
+    head = f"INSERT INTO fleet_units ({', '.join(c for c, _ in kept)}) VALUES "
+    row = "(" + ", ".join(["?"] * width) + ")"
+    full = head + ", ".join([row] * _ROWS_PER_INSERT)
+    step = width * _ROWS_PER_INSERT
+    for start in range(0, len(flat), step):
+        chunk = flat[start:start + step]
+        cursor.execute(full if len(chunk) == step else head + ", ".join([row] * (len(chunk) // width)), chunk)
+
+
+def _insert_copy(cursor: Any, columns: tuple[str, ...], values: list[list]) -> None:
+    with cursor.copy(f"COPY fleet_units ({', '.join(columns)}) FROM STDIN") as copy:
+        for row in zip(*values, strict=True):
+            copy.write_row(row)
+
+
+def _update_sqlite(cursor: Any, changed: list[tuple[str, list]]) -> None:
+    assignments = ", ".join(f"{c} = ?" for c, _ in changed[1:])
+    cursor.executemany(f"UPDATE fleet_units SET {assignments}, version = version + 1 WHERE asset_id = ?",
+                       list(zip(*[v for _, v in changed[1:]], changed[0][1], strict=True)))
+
+
+def _update_copy(cursor: Any, changed: list[tuple[str, list]]) -> None:
+    # The new values go into a temporary table by COPY and then into the units with one UPDATE:
+    # many times faster on PostgreSQL than an UPDATE per unit.
+    names = [c for c, _ in changed]
+    cursor.execute(f"CREATE TEMPORARY TABLE fleet_unit_updates ON COMMIT DROP AS "
+                   f"SELECT {', '.join(names)} FROM fleet_units WITH NO DATA")
+    with cursor.copy(f"COPY fleet_unit_updates ({', '.join(names)}) FROM STDIN") as copy:
+        for row in zip(*[v for _, v in changed], strict=True):
+            copy.write_row(row)
+    assignments = ", ".join(f"{c} = u.{c}" for c in names[1:])
+    cursor.execute(f"UPDATE fleet_units SET {assignments}, version = fleet_units.version + 1 "
+                   "FROM fleet_unit_updates u WHERE fleet_units.asset_id = u.asset_id")
 
 
 def import_out(staged: FleetImport) -> schemas.FleetImportOut:
@@ -355,6 +540,8 @@ def create_unit(session: Session, data: schemas.FleetUnitCreate) -> FleetUnit:
         code = DRY if data.insulation == "dry" else LIQUID
         est0, estk = estimate_losses(data.rating_kva, data.year_installed, code, typical_losses(session))
     peak = data.peak_load_pu if data.peak_load_pu is not None else data.peak_load_kva / data.rating_kva
+    if peak > 5:  # the import's limit; a unit beyond it would stop every fleet-wide calculation
+        raise InvalidField("peak_load_kva", "peak loading must be between 0 and 5 pu of the rating.")
     unit = FleetUnit(
         asset_id=data.asset_id, site=data.site, region=data.region, rating_kva=data.rating_kva, phases=data.phases,
         insulation=data.insulation, year_installed=data.year_installed,
@@ -512,7 +699,10 @@ def fleet_groups(session: Session, cost_basis_id: int, by: str) -> schemas.Fleet
 
 def fleet_loading(session: Session, max_loading_pu: float, min_loading_pu: float, limit: int = 200) -> schemas.FleetLoadingOut:
     data = load_fleet(session)
-    found = loading_findings(data.arrays.peak_load_pu, max_loading_pu=max_loading_pu, min_loading_pu=min_loading_pu)
+    try:
+        found = loading_findings(data.arrays.peak_load_pu, max_loading_pu=max_loading_pu, min_loading_pu=min_loading_pu)
+    except InvalidInput as exc:  # e.g. a lower limit above the upper one
+        raise InvalidField(exc.field, exc.message) from exc
 
     def listed(mask: np.ndarray, descending: bool) -> list[schemas.FleetUnitBrief]:
         idx = np.flatnonzero(mask)
