@@ -2,14 +2,15 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Response
+from fastapi import APIRouter, Request, Response
 
 from server import schemas
 from server.auth import ANY_ROLE, BUYER
-from server.deps import SessionDep
+from server.deps import SessionDep, cached
 from server.exports import ranking_csv
 from server.services import offers as service
-from server.services.ranking import lot_ranking, lot_ranking_json
+from server.services import ranking
+from server.services.ranking import lot_ranking
 
 
 router = APIRouter(tags=["offers and ranking"])
@@ -42,13 +43,14 @@ def delete_offer(offer_id: int, session: SessionDep):
 
 
 @router.get("/lots/{lot_id}/ranking", response_model=schemas.RankingOut, dependencies=[ANY_ROLE])
-async def get_ranking(lot_id: int, session: SessionDep, include_non_compliant: bool = False):
+async def get_ranking(request: Request, lot_id: int, include_non_compliant: bool = False):
     """Compliant offers ranked by total owning cost, lowest first, with the rates and loading used.
 
     Non-compliant offers are left out (counted in ``excluded``); with
     ``include_non_compliant=true`` they follow, unranked, with their reasons.
     """
-    body = await lot_ranking_json(session, lot_id, include_non_compliant)
+    body = await cached(request, ranking.RANKINGS_JSON, (lot_id, include_non_compliant),
+                        lambda session: ranking.lot_ranking_json(session, lot_id, include_non_compliant))
     return Response(body, media_type="application/json")
 
 

@@ -20,8 +20,8 @@ router = APIRouter()
 
 
 @router.get("/lots/{lot_id:int}", dependencies=[ANY_ROLE])
-async def lot_detail(request: Request, lot_id: int, session: SessionDep, include_non_compliant: bool = False):
-    return await cached_page(request, session, ("lot", lot_id, include_non_compliant), lambda: render(
+async def lot_detail(request: Request, lot_id: int, include_non_compliant: bool = False):
+    return await cached_page(request, ("lot", lot_id, include_non_compliant), lambda session: render(
         request, "lots/detail.html", views.lot_detail(session, lot_id, include_non_compliant)))
 
 

@@ -17,8 +17,8 @@ from html import escape
 from fastapi import Request
 from fastapi.responses import HTMLResponse
 from sqlalchemy.orm import Session
-from starlette.concurrency import run_in_threadpool
 
+from server.deps import cached
 from server.storage.generation import GenerationCache
 
 # Plain letters and digits, so that HTML escaping and JSON encoding (the token also sits in the
@@ -29,27 +29,24 @@ _PLACEHOLDERS = re.compile(f"({_USER}|{_TOKEN})".encode())
 _PAGES = GenerationCache(size=128)
 
 
-async def cached_page(
-    request: Request, session: Session, key: tuple, render: Callable[[], HTMLResponse]
-) -> HTMLResponse:
-    """The page for ``key``, rendered in a worker thread only when this generation has not
-    been rendered yet for the viewer's roles; a hit runs on the event loop with no I/O."""
-    principal = getattr(request.state, "principal", None)
-    if principal is None:
-        return await run_in_threadpool(render)
+async def cached_page(request: Request, key: tuple, render: Callable[[Session], HTMLResponse]) -> HTMLResponse:
+    """The page for ``key`` (rendered from the session ``render`` is given), rendered in a worker
+    thread only when this generation has not been rendered yet for the viewer's roles; a hit
+    is served on the event loop with no I/O (``server.deps.cached``)."""
+    principal = request.state.principal  # set by server.auth.Requires
     roles = tuple(sorted(principal.roles))
-    full_key = (key, roles, bool(request.headers.get("HX-Request")))
 
-    def render_for_roles() -> tuple[int, list[bytes]]:
+    def render_for_roles(session: Session) -> tuple[int, list[bytes]]:
         request.state.principal = dataclasses.replace(principal, username=_USER, csrf_token=_TOKEN)
         try:
-            response = render()
+            response = render(session)
         finally:
             request.state.principal = principal
         # Split at the placeholders (kept at the odd places), so a viewer's page is one join.
         return response.status_code, _PLACEHOLDERS.split(bytes(response.body))
 
-    status, parts = await _PAGES.get_or_compute_async(session, full_key, render_for_roles)
+    status, parts = await cached(request, _PAGES, (key, roles, bool(request.headers.get("HX-Request"))),
+                                 render_for_roles)
     own = {_USER.encode(): escape(principal.username).encode(), _TOKEN.encode(): (principal.csrf_token or "").encode()}
     body = b"".join(own[part] if k % 2 else part for k, part in enumerate(parts))
     return HTMLResponse(body, status_code=status)

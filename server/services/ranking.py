@@ -53,14 +53,12 @@ def lot_ranking(session: Session, lot_id: int, include_non_compliant: bool = Fal
     return _RANKINGS.get_or_compute(session, ("ranking", lot_id, include_non_compliant), compute).model_copy(deep=True)
 
 
-_RANKINGS_JSON = GenerationCache()
+# ``lot_ranking`` as JSON, encoded once per data generation (the API's hot path).
+RANKINGS_JSON = GenerationCache()
 
 
-async def lot_ranking_json(session: Session, lot_id: int, include_non_compliant: bool = False) -> bytes:
-    """``lot_ranking`` as JSON, encoded once per data generation (for the API's hot path)."""
-    return await _RANKINGS_JSON.get_or_compute_async(
-        session, ("ranking", lot_id, include_non_compliant),
-        lambda: lot_ranking(session, lot_id, include_non_compliant).model_dump_json().encode())
+def lot_ranking_json(session: Session, lot_id: int, include_non_compliant: bool = False) -> bytes:
+    return lot_ranking(session, lot_id, include_non_compliant).model_dump_json().encode()
 
 
 def rank_lot(session: Session, lot: Lot, revision: CostBasisRevision,

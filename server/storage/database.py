@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import asyncio
-import logging
 from collections.abc import Iterator
 from typing import Any
 from contextlib import contextmanager
 
 import psycopg
+from psycopg_pool import AsyncConnectionPool
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import Compiled
 from sqlalchemy.sql.expression import Executable
@@ -16,8 +16,11 @@ from sqlalchemy.orm import Session, sessionmaker
 from starlette.concurrency import run_in_threadpool
 
 from server.storage import audit  # noqa: F401  (registers the audit hook on every session)
+from server.storage.generation import database_key
 
-log = logging.getLogger("lossledger")
+# Asynchronous connections per worker for the read every request makes: reads wait for one
+# only while all are busy, and a server under load answers several at once.
+ASYNC_POOL_SIZE = 4
 
 
 def make_engine(url: str) -> Engine:
@@ -46,12 +49,12 @@ class Database:
         self.url = url
         self.engine = make_engine(url)
         self.sessionmaker = sessionmaker(self.engine, expire_on_commit=False)
+        self.cache_key = database_key(self.engine.url)  # see server.storage.generation
         self._compiled: dict[int, tuple[Executable, Compiled]] = {}
-        # PostgreSQL, in a served app: one asynchronous connection for the per-request read,
-        # bound to the event loop that opened it (see open_async).
-        self._async: psycopg.AsyncConnection | None = None
+        # PostgreSQL, in a served app: asynchronous connections for the read every request
+        # makes, bound to the event loop that opened them (see open_async).
+        self._async_pool: AsyncConnectionPool | None = None
         self._async_loop: asyncio.AbstractEventLoop | None = None
-        self._async_lock: asyncio.Lock | None = None
 
     @contextmanager
     def session(self) -> Iterator[Session]:
@@ -89,54 +92,43 @@ class Database:
             connection.close()
 
     async def read_row_async(self, statement: Executable, params: dict[str, Any]) -> tuple | None:
-        """``read_row`` without a worker thread: on the asynchronous connection when this event
-        loop opened one (PostgreSQL), else ``read_row`` in the thread pool. A handoff to a thread
+        """``read_row`` without a worker thread: on the asynchronous pool when this event loop
+        opened one (PostgreSQL), else ``read_row`` in the thread pool. A handoff to a thread
         costs more than the read itself, and under load it waits for the interpreter lock. When
-        the server has dropped the connection (it restarted), it is opened again and the read
+        the server has dropped the connections (it restarted), the pool is checked and the read
         tried once more."""
-        if self._async_loop is not asyncio.get_running_loop():
+        if self._async_pool is None or self._async_loop is not asyncio.get_running_loop():
             return await run_in_threadpool(self.read_row, statement, params)
         sql, values = self._bind(statement, params)
         for attempt in (1, 2):
             try:
-                if self._async is None:
-                    await self._reconnect_async()
-                cursor = await self._async.execute(sql, values)
-                return await cursor.fetchone()
+                async with self._async_pool.connection() as connection:
+                    cursor = await connection.execute(sql, values)
+                    return await cursor.fetchone()
             except psycopg.OperationalError:
                 if attempt == 2:
                     raise
-                await self._reconnect_async()
+                await self._async_pool.check()  # drops every connection the server closed
         raise AssertionError("unreachable")
 
     async def open_async(self) -> None:
-        """Open the asynchronous connection on the running loop (PostgreSQL only; the app's
-        start-up). A server that cannot be reached yet is tried again by the first request."""
+        """Open a small pool of asynchronous connections on the running loop (PostgreSQL only;
+        the app's start-up). It connects in the background, so a server that cannot be reached
+        yet delays no start-up; ``/readyz`` tells."""
         if self.engine.dialect.name != "postgresql":
             return
+        _args, options = self.engine.dialect.create_connect_args(self.engine.url)
+        options.pop("context", None)  # SQLAlchemy's adapters are for its own connections
+        self._async_pool = AsyncConnectionPool(
+            kwargs={**options, "autocommit": True}, min_size=ASYNC_POOL_SIZE, max_size=ASYNC_POOL_SIZE,
+            timeout=10, open=False, name="request-reads")
+        await self._async_pool.open(wait=False)
         self._async_loop = asyncio.get_running_loop()
-        self._async_lock = asyncio.Lock()
-        try:
-            await self._reconnect_async()
-        except psycopg.OperationalError:
-            log.warning("database not reachable at start-up; requests will try again", exc_info=True)
 
     async def close_async(self) -> None:
-        if self._async is not None:
-            await self._async.close()
-        self._async = self._async_loop = None
-
-    async def _reconnect_async(self) -> None:
-        broken = self._async
-        async with self._async_lock:
-            if self._async is not broken:  # a concurrent request has replaced it already
-                return
-            self._async = None
-            if broken is not None:
-                await broken.close()
-            _args, options = self.engine.dialect.create_connect_args(self.engine.url)
-            options.pop("context", None)  # SQLAlchemy's adapters are for its own connections
-            self._async = await psycopg.AsyncConnection.connect(**options, autocommit=True)
+        if self._async_pool is not None:
+            await self._async_pool.close()
+        self._async_pool = self._async_loop = None
 
     def _bind(self, statement: Executable, params: dict[str, Any]) -> tuple[str, Any]:
         compiled = self._compile(statement)

@@ -13,9 +13,8 @@ from datetime import datetime
 from threading import Event, Lock
 from typing import TypeVar
 
-from sqlalchemy import event, select
+from sqlalchemy import URL, event, select
 from sqlalchemy.orm import Session
-from starlette.concurrency import run_in_threadpool
 
 from server.storage.models import AuditEvent
 
@@ -68,6 +67,11 @@ def data_generation(session: Session) -> tuple:
     return generation_value(*row) if row else (0, "")
 
 
+def database_key(url: URL) -> str:
+    """Which database a cached result came from, as the caches key it."""
+    return url.render_as_string(hide_password=False)
+
+
 class GenerationCache:
     """A small per-process LRU of computed results keyed by (data generation, key)."""
 
@@ -103,31 +107,21 @@ class GenerationCache:
                 del self.computing[full_key]
             running.set()
 
-    def peek(self, session: Session, key: Hashable) -> object | None:
-        """The cached result when the session already knows the generation (``remember``), else
-        None: never touches the database, so it may run on the event loop."""
-        known = remembered(session)
-        if known is None:
-            return None
-        full_key = self._full_key(session, known, key)
+    def peek(self, database: str, generation: tuple, key: Hashable) -> object | None:
+        """The result cached for a generation already known (read with the user's session), or
+        None; never touches the database, so it may run on the event loop. ``database`` is
+        ``database_key`` of the engine's URL."""
+        full_key = (database, generation, key)
         with self.lock:
             if full_key in self.entries:
                 self.entries.move_to_end(full_key)
                 return self.entries[full_key]
         return None
 
-    async def get_or_compute_async(self, session: Session, key: Hashable, compute: Callable[[], T]) -> T:
-        """``get_or_compute`` for an async route: a hit is served on the event loop (no I/O when
-        the request's session knows the generation); a miss is computed in a worker thread."""
-        hit = self.peek(session, key)
-        if hit is not None:
-            return hit  # type: ignore[return-value]
-        return await run_in_threadpool(self.get_or_compute, session, key, compute)
-
     @staticmethod
     def _full_key(session: Session, generation: tuple, key: Hashable) -> tuple:
         # The database is part of the key: one process may serve (or test) several.
-        return session.get_bind().url, generation, key
+        return database_key(session.get_bind().url), generation, key
 
     def clear(self) -> None:
         with self.lock:

@@ -123,3 +123,23 @@ def test_requests_missing_the_same_entry_compute_it_once(sqlite_url):
         results = list(pool.map(ask, [True] * 4))
     assert sorted(results) == ["error", "value", "value", "value"] and len(calls) == 2
     db.dispose()
+
+
+def test_a_cached_page_and_ranking_are_served_without_a_worker_thread(db_url, monkeypatch):
+    """The hit path runs on the event loop: with the thread pool taken away, a second request
+    for the same page and ranking is still answered (from the cache)."""
+    from server import deps
+
+    with make_client(db_url) as client:
+        client.headers.update(auth("tester"))
+        _, _, lot_id = f.setup_lot(client)
+        client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer())
+        first_page = client.get(f"/lots/{lot_id}").text
+        first_ranking = client.get(f"/api/v1/lots/{lot_id}/ranking").json()
+
+        def no_threads(*_args, **_kwargs):
+            raise AssertionError("a cache hit went to a worker thread")
+
+        monkeypatch.setattr(deps, "run_in_threadpool", no_threads)
+        assert client.get(f"/lots/{lot_id}").text == first_page
+        assert client.get(f"/api/v1/lots/{lot_id}/ranking").json() == first_ranking
