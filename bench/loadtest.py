@@ -72,7 +72,8 @@ def postgres():
                     "-c listen_addresses=127.0.0.1 -c fsync=off -c max_connections=200' start"],
                    check=True, capture_output=True)
     try:
-        yield f"postgresql+psycopg://postgres@127.0.0.1:{port}/postgres"
+        # Through the Unix socket, as an application on the database host connects.
+        yield f"postgresql+psycopg://postgres@/postgres?host={root}&port={port}"
     finally:
         subprocess.run([*as_postgres, f"{pgbin}/pg_ctl -D {root}/data -m fast stop"], capture_output=True)
         shutil.rmtree(root, ignore_errors=True)
