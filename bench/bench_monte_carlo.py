@@ -18,7 +18,15 @@ Targets (from the issue), measured side by side in one run:
   sees numpy's allocations), against 800 MB for the full float64 TOC matrix.
 
 Timings are the best of several interleaved repeats so that both sides see the
-same machine state. BLAS threads are left as the environment sets them.
+same machine state. BLAS threads are left as the environment sets them: the
+floor's one large product runs on all of them, while ``monte_carlo`` keeps each
+product small (one BLAS thread) and runs its chunks on threads of its own, one
+per usable CPU (at most ``MAX_WORKERS``); the line of CPUs says how many.
+After a threaded product OpenBLAS keeps its worker thread spinning, waiting for
+more work (about 0.1 s here, OPENBLAS_THREAD_TIMEOUT), so whatever is timed right
+after the floor would share a core with it. Each timed call therefore starts after
+SETTLE_S of rest, the floor's as well as ``monte_carlo``'s: neither is timed while
+the other's threads are still running.
 The offers are invented (random but plausible prices and losses for a unit of
 about 1 MVA); the inputs are those of the unit tests.
 """
@@ -35,7 +43,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from domain.sensitivity import OfferArrays, monte_carlo, present_worth_rates_vectorised
+from domain.sensitivity import MAX_WORKERS, OfferArrays, monte_carlo, present_worth_rates_vectorised
 
 BASE = dict(
     energy_price_per_kwh=0.09,
@@ -58,6 +66,7 @@ DISTRIBUTIONS = {
     "peak_load_pu": {"dist": "triangular", "low": 0.5, "mode": 0.7, "high": 1.0},
 }
 SEED = 2024
+SETTLE_S = 0.25  # rest before each timed call: longer than OpenBLAS's spin after a product
 
 
 def synthetic_offers(n_offers: int, seed: int = 7) -> dict[str, np.ndarray]:
@@ -177,7 +186,9 @@ def main() -> None:
 
     floor_times, mc_times = [], []
     for _ in range(args.repeats):
+        time.sleep(SETTLE_S)
         floor_times.append(timed(lambda: floor(rates, losses_kw, price)))
+        time.sleep(SETTLE_S)
         mc_times.append(timed(lambda: run_monte_carlo(columns, args.draws)))
     floor_s, mc_s = min(floor_times), min(mc_times)
 
@@ -189,8 +200,10 @@ def main() -> None:
 
     evaluations = args.offers * args.draws
     winners = int(np.count_nonzero(mc_share))
+    usable = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
     print(f"Monte Carlo, {args.offers:,} offers x {args.draws:,} draws = {evaluations:,} TOC evaluations "
-          f"({winners} offers win at least one draw); {os.cpu_count()} CPUs; best of {args.repeats}")
+          f"({winners} offers win at least one draw); {os.cpu_count()} CPUs, monte_carlo on "
+          f"{min(MAX_WORKERS, usable)} threads; best of {args.repeats}")
     floor_median, mc_median = np.median(floor_times) * 1e3, np.median(mc_times) * 1e3
     print(f"  floor (R @ L + price, argmin):     {floor_s * 1e3:8.1f} ms   (median {floor_median:.1f})")
     print(f"  monte_carlo (everything):          {mc_s * 1e3:8.1f} ms   (median {mc_median:.1f})")

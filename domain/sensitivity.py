@@ -22,7 +22,10 @@ is the offer that ``rank_offers`` would place first.
 from __future__ import annotations
 
 import math
+import os
+import threading
 from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor, wait
 from dataclasses import dataclass
 from typing import Any
 
@@ -91,11 +94,19 @@ MIN_NORMAL_ACCEPTANCE = 1e-3
 # Each matrix product makes at most PRODUCT_ELEMENTS outputs from 4 terms:
 # OpenBLAS runs such a product on one thread (it splits work above
 # M * N * K = 262,144), and waking BLAS threads for these thin products cost
-# more than it saved on a 2-core machine, several times more under load.
+# more than it saved on a 2-core machine, several times more under load. The
+# Monte Carlo uses the cores through threads of its own instead (below).
 PRODUCT_ELEMENTS = 1 << 16
-PERCENTILE_BLOCK_BYTES = 8 << 20
-RATE_CHUNK_ELEMENTS = 1 << 19
+PERCENTILE_BLOCK_BYTES = 4 << 20  # per thread
+RATE_CHUNK_ELEMENTS = 1 << 14
 GRID_CHUNK_ELEMENTS = 1 << 20
+# Winners are found in tasks of about this many TOC values (several products
+# each), so that handing out a task costs little next to its work.
+WINNER_TASK_ELEMENTS = 1 << 20
+# The Monte Carlo runs its chunks on one thread per usable CPU, at most this
+# many (numpy releases the GIL in matmul, argmin and partition). Each thread
+# holds its own percentile block, so this also bounds the memory.
+MAX_WORKERS = 8
 
 
 # --------------------------------------------------------------------------- offers
@@ -716,24 +727,26 @@ def _rate_input_arrays(inputs: Mapping[str, Any]) -> tuple[dict[str, np.ndarray]
     return arrays, shape
 
 
+def _geometric_sums(years: np.ndarray, log_ratio: np.ndarray) -> np.ndarray:
+    """Sum of r^k over k = 0..n-1 for whole n >= 1, given log_ratio = ln r (see the vectorised rates)."""
+    # Below 2^-60 every r^k (k < n <= MAX_YEARS) is 1 to within half an ulp, so
+    # the sum is n; the quotient would lose digits as ln r nears the subnormals.
+    near_one = np.abs(log_ratio) < 2.0**-60
+    safe = np.where(near_one, 1.0, log_ratio)
+    return np.where(near_one, years, np.expm1(years * safe) / np.expm1(safe))
+
+
 def _present_worth_kernel(x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """A, B, C for 1-D input arrays of equal length, already checked (see the public wrapper)."""
     years = x["years"]
-    horizon = int(years.max())
-    t = np.arange(1.0, horizon + 1.0)[:, None]
-    t_less_1 = t - 1.0
-    # Logs of the four year weights, each a (years x elements) slab: the sums
-    # over years then run along contiguous rows. Years beyond an element's n
-    # get -inf, so their weight exp(-inf) is exactly 0.
-    logs = np.empty((4, horizon, years.size))
-    np.multiply(-t, np.log1p(x["discount_rate"]), out=logs[0])
-    if np.any(years != horizon):
-        logs[0][t > years] = -np.inf
-    np.add(logs[0], t_less_1 * np.log1p(x["energy_escalation"]), out=logs[1])
-    growth = t_less_1 * (2.0 * np.log1p(x["load_growth"]))
-    np.add(logs[0], growth, out=logs[2])
-    np.add(logs[1], growth, out=logs[3])
-    s_d, s_e, s_g, s_eg = np.exp(logs, out=logs).sum(axis=1)
+    log_discount = np.log1p(x["discount_rate"])
+    log_escalation = np.log1p(x["energy_escalation"])
+    log_growth = 2.0 * np.log1p(x["load_growth"])
+    first = np.exp(-log_discount)
+    s_d = first * _geometric_sums(years, -log_discount)
+    s_e = first * _geometric_sums(years, log_escalation - log_discount)
+    s_g = first * _geometric_sums(years, log_growth - log_discount)
+    s_eg = first * _geometric_sums(years, log_escalation + log_growth - log_discount)
 
     sc, rf = x["capacity_cost_per_kw_year"], x["responsibility_factor"]
     price, carbon = x["energy_price_per_kwh"], x["carbon_cost_per_kwh"]
@@ -766,24 +779,32 @@ def present_worth_rates_vectorised(inputs_arrays: Mapping[str, Any]) -> tuple[An
     -----
     Same conventions as ``rates_present_worth``: year t = 1..n, cash flows
     at the end of the year, price_t = price (1 + e)^(t-1),
-    peak_t = peak (1 + g)^(t-1). With the matrices of year weights over
-    (years 1..max n) x elements (the transpose of elements x years, so that
-    the sums run along contiguous rows) D_t = (1 + i)^-t,
+    peak_t = peak (1 + g)^(t-1). The yearly weights D_t = (1 + i)^-t,
     E_t = (1 + e)^(t-1) D_t, G_t = (1 + g)^(2(t-1)) D_t and
-    EG_t = (1 + e)^(t-1) (1 + g)^(2(t-1)) D_t, set to zero for t > n of
-    that element, and S_X their sums over the years:
+    EG_t = (1 + e)^(t-1) (1 + g)^(2(t-1)) D_t are geometric series, so
+    their sums over the years have a closed form: with x = 1, (1 + e),
+    (1 + g)^2 or (1 + e)(1 + g)^2 and r = x / (1 + i),
+
+    S_X = sum_t x^(t-1) (1 + i)^-t = (1 + i)^-1 (r^n - 1) / (r - 1),
+
+    and n (1 + i)^-1 when r = 1. It is evaluated as
+    expm1(n ln r) / expm1(ln r), with ln r = log1p(.) - log1p(i), which
+    keeps its accuracy as r approaches 1 (as when e = i). Then
 
     A = SC S_D + hours (price S_E + carbon S_D),
     B = peak^2 (SC RF S_G + hours LsF (price S_EG + carbon S_G)),
     C = SC RF S_D + cooling_hours (price S_E + carbon S_D).
 
-    Powers are taken as exp(k log1p(x)); the results agree with the scalar
-    function to about 1e-14 relative.
+    The results agree with the scalar function's year-by-year sums to about
+    1e-14 relative.
 
     References
     ----------
     Present-worth loss-evaluation method as described for IEEE C57.120 and the
-    US rural-utility bulletins (REA 65-2, RUS 1724E-301); vectorisation our own.
+    US rural-utility bulletins (REA 65-2, RUS 1724E-301). The sums are the
+    geometric-gradient present-worth factor of engineering economics (e.g.
+    Newnan, Eschenbach and Lavelle, Engineering Economic Analysis; from
+    memory); the expm1/log1p form and the vectorisation are our own.
     """
     arrays, shape = _rate_input_arrays(inputs_arrays)
     size = math.prod(shape)
@@ -791,7 +812,7 @@ def present_worth_rates_vectorised(inputs_arrays: Mapping[str, Any]) -> tuple[An
     a = np.empty(size)
     b = np.empty(size)
     c = np.empty(size)
-    step = max(1, RATE_CHUNK_ELEMENTS // MAX_YEARS)
+    step = RATE_CHUNK_ELEMENTS
     for start in range(0, size, step):
         part = {name: array[start : start + step] for name, array in flat.items()}
         part_rates = _present_worth_kernel(part)
@@ -1168,6 +1189,81 @@ def _linear_percentiles(block: np.ndarray, percentiles: Sequence[float]) -> np.n
     return out
 
 
+def _usable_cpus() -> int:
+    """CPUs this process may run on (its affinity mask where the platform has one)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform (macOS, Windows)
+        return os.cpu_count() or 1
+
+
+def _spans(size: int, step: int) -> list[tuple[int, int]]:
+    """(start, stop) pairs that cover range(size) in steps of ``step``."""
+    return [(start, min(size, start + step)) for start in range(0, size, step)]
+
+
+def _run_spans(
+    pool: ThreadPoolExecutor,
+    workers: int,
+    spans: Sequence[tuple[int, int]],
+    work: Callable[[int, int, Any], None],
+    scratch: Callable[[], Any],
+    report: Callable[[int], None],
+) -> None:
+    """Call ``work(start, stop, own)`` for every span, here and on ``workers - 1`` threads of ``pool``.
+
+    Each thread makes its own scratch ``own`` once, then takes the next span
+    whenever it is free, so the spans must write to disjoint outputs and the
+    result cannot depend on the number of threads. Only this thread calls
+    ``report(done)``, with the number of items done so far by all threads:
+    after each span it runs, and at the end if the last spans ran elsewhere.
+    When ``report`` or ``work`` raises, no further span starts, and the
+    exception propagates once the spans in hand are finished: no thread is
+    left writing after this returns.
+    """
+    remaining = iter(spans)
+    lock = threading.Lock()
+    quitting = threading.Event()
+    done = reported = 0
+    failed: list[BaseException] = []
+
+    def run(reporting: bool) -> None:
+        nonlocal done, reported
+        own = scratch()
+        while True:
+            with lock:
+                span = None if quitting.is_set() else next(remaining, None)
+            if span is None:
+                return
+            work(*span, own)
+            with lock:
+                done += span[1] - span[0]
+                so_far = done
+            if reporting:
+                report(so_far)
+                reported = so_far
+
+    def helper() -> None:
+        try:
+            run(reporting=False)
+        except BaseException as exc:  # handed to the calling thread, which raises it
+            failed.append(exc)
+            quitting.set()
+
+    # The calling thread works too: it starts at once, while a pool thread
+    # may take a scheduler tick to wake.
+    helpers = [pool.submit(helper) for _ in range(min(workers, len(spans)) - 1)]
+    try:
+        run(reporting=True)
+    finally:
+        quitting.set()
+        wait(helpers)
+    if failed:
+        raise failed[0]
+    if done > reported:
+        report(done)
+
+
 def monte_carlo(
     offers: OfferArrays,
     base_inputs: Mapping[str, float],
@@ -1178,6 +1274,7 @@ def monte_carlo(
     chunk_size: int | None = None,
     *,
     percentile_block_bytes: int = PERCENTILE_BLOCK_BYTES,
+    workers: int | None = None,
     progress: Callable[[float], None] | None = None,
     should_stop: Callable[[], bool] | None = None,
 ) -> MonteCarloResult:
@@ -1209,16 +1306,24 @@ def monte_carlo(
         chunk. Default: the present-worth method, as
         ``present_worth_rates_vectorised``.
     chunk_size : int, optional
-        Draws per chunk when finding winners; default 65,536 // offers
-        (see PRODUCT_ELEMENTS).
+        Draws per matrix product when finding winners; default
+        65,536 // offers (see PRODUCT_ELEMENTS). A chunk of winners is a run
+        of such products of about WINNER_TASK_ELEMENTS TOC values.
     percentile_block_bytes : int, optional
-        Bytes of TOC values held per block of offers for the percentiles
-        (at least one offer's draws). Default 8 MiB.
+        Bytes of TOC values each thread holds per block of offers for the
+        percentiles (at least one offer's draws). Default 4 MiB.
+    workers : int, optional
+        Threads to run the chunks on, the calling thread included, >= 1;
+        default the usable CPUs, at most MAX_WORKERS. The result does not
+        depend on it.
     progress : callable, optional
-        Called with the fraction done (0..1) after each chunk.
+        Called on the calling thread with the fraction done (0..1) after each
+        chunk that thread runs (of rates, of winners, or a block of offers)
+        and at the end of each pass.
     should_stop : callable, optional
-        Checked between chunks; when it returns True, SimulationCancelled is
-        raised.
+        Checked on the calling thread before each call of ``progress``; when
+        it returns True, no further chunk starts and SimulationCancelled is
+        raised once the chunks in hand are finished.
 
     Returns
     -------
@@ -1239,6 +1344,13 @@ def monte_carlo(
     matrix product. The winner is the argmin (lowest index on an exact tie
     of the computed values). Win probability = wins / draws.
 
+    Threads: the rates (unless ``rates_fn`` is given, which is called in
+    order on the calling thread), the winners and the percentiles are each
+    computed in chunks that threads take in turn; each chunk writes only its
+    own rows, and the chunk boundaries do not depend on the thread count, so
+    neither does any value returned. The sums (win counts, regret, mean) are
+    taken afterwards on the calling thread.
+
     Expected regret of offer j = mean over draws of TOC_j - min_k TOC_k,
     computed from the winners alone: with n_w draws won by w and s_w the sum
     of their rate rows, sum over draws = sum_w [n_w (price_j - price_w) +
@@ -1251,10 +1363,11 @@ def monte_carlo(
     with ``numpy.partition``; no binning or sketch, so the values returned
     are order statistics of the computed TOCs, interpolated as numpy does,
     and the only error is the float64 rounding of TOC itself (a few units in
-    the last place). Memory: draws x (varied inputs + 5) x 8 bytes plus the
-    work blocks (percentile_block_bytes, or one offer's draws if larger),
-    about 17 MiB at peak for 100,000 draws and 1,000 offers (bench), where
-    the whole float64 TOC matrix would take 763 MiB.
+    the last place). Memory: draws x (varied inputs + 5) x 8 bytes plus, per
+    thread, the work blocks (percentile_block_bytes, or one offer's draws if
+    larger): about 12 MiB at peak for 100,000 draws and 1,000 offers on 2
+    threads (bench; 4 MiB more per further thread), where the whole float64
+    TOC matrix would take 763 MiB.
 
     References
     ----------
@@ -1272,6 +1385,10 @@ def monte_carlo(
     else:
         chunk = whole_number("chunk_size", chunk_size, low=1)
     block_bytes = whole_number("percentile_block_bytes", percentile_block_bytes, low=1)
+    if workers is None:
+        n_workers = min(MAX_WORKERS, _usable_cpus())
+    else:
+        n_workers = whole_number("workers", workers, low=1)
 
     base = {name: _input_value(name, value) for name, value in base_inputs.items()}
     for name in distributions:
@@ -1288,8 +1405,9 @@ def monte_carlo(
     base_rows = {name: np.array([float(value)]) for name, value in base.items()}
     if rates_fn is None:
         # Check every draw before any work; the kernel then runs unchecked.
-        checked, _ = _rate_input_arrays(samples)
+        checked = _rate_input_arrays(samples)[0]
         samples = {name: np.broadcast_to(array, (n_draws,)) for name, array in checked.items()}
+        del checked  # samples.clear() below then frees the draws
         base_rows = _rate_input_arrays(base_rows)[0]
         compute: Callable[[Mapping[str, np.ndarray]], Any] = _present_worth_kernel
     else:
@@ -1304,47 +1422,72 @@ def monte_carlo(
         if progress is not None:
             progress(min(1.0, fraction))
 
-    # Rate rows [1, A/1000, B/1000, C/1000]: TOC = rows @ L in one product.
-    rate_rows = np.empty((n_draws, 4))
-    rate_rows[:, 0] = 1.0
-    rate_step = max(1, RATE_CHUNK_ELEMENTS // MAX_YEARS)
-    for start in range(0, n_draws, rate_step):
-        stop = min(n_draws, start + rate_step)
+    # Rate rows [1, A/1000, B/1000, C/1000], stored as columns (4, draws):
+    # TOC = rows @ L in one product, and each row of L.T @ columns is one
+    # offer's TOC over the draws, for its percentiles.
+    rate_columns = np.empty((4, n_draws))
+    rate_columns[0] = 1.0
+    rate_rows = rate_columns.T
+
+    def rates_of(start: int, stop: int, _: None) -> None:
         part = {name: array[start:stop] for name, array in samples.items()}
         a, b, c = _checked_rates("rates_fn", compute(part), (stop - start,))
-        rate_rows[start:stop, 1] = a
-        rate_rows[start:stop, 2] = b
-        rate_rows[start:stop, 3] = c
-        report(0.05 * stop / n_draws)
-    rate_rows[:, 1:] /= 1000.0
-    del samples
+        rate_columns[1, start:stop] = a
+        rate_columns[2, start:stop] = b
+        rate_columns[3, start:stop] = c
+        rate_columns[1:, start:stop] /= 1000.0
 
     losses = np.vstack([offers.prices, offers.p0_w, offers.pk_w, offers.paux_w])  # (4, offers)
+    losses_by_offer = np.ascontiguousarray(losses.T)  # (offers, 4)
     winners = np.empty(n_draws, dtype=np.intp)
-    work = np.empty((min(chunk, n_draws), n_offers))
-    for start in range(0, n_draws, chunk):
-        stop = min(n_draws, start + chunk)
-        toc = work[: stop - start]
-        np.matmul(rate_rows[start:stop], losses, out=toc)
-        winners[start:stop] = toc.argmin(axis=1)
-        report(0.05 + 0.25 * stop / n_draws)
 
-    wins = np.bincount(winners, minlength=n_offers)
-    regret = _regret_sums(winners, wins, rate_rows, losses) / n_draws
-    toc_mean = rate_rows.mean(axis=0) @ losses
+    def winners_of(first: int, last: int, work: np.ndarray) -> None:
+        for start in range(first, last, chunk):
+            stop = min(last, start + chunk)
+            toc = work[: stop - start]
+            np.matmul(rate_rows[start:stop], losses, out=toc)
+            toc.argmin(axis=1, out=winners[start:stop])
 
     rows_per_block = max(1, min(n_offers, block_bytes // (8 * n_draws)))
-    losses_by_offer = np.ascontiguousarray(losses.T)  # (offers, 4)
-    rates_by_column = np.ascontiguousarray(rate_rows.T)  # (4, draws)
-    del rate_rows
-    block = np.empty((rows_per_block, n_draws))
     quantiles = np.empty((n_offers, len(PERCENTILES)))
-    for start in range(0, n_offers, rows_per_block):
-        stop = min(n_offers, start + rows_per_block)
+
+    def percentiles_of(start: int, stop: int, block: np.ndarray) -> None:
         toc = block[: stop - start]
-        _toc_by_offer(losses_by_offer[start:stop], rates_by_column, toc)
+        _toc_by_offer(losses_by_offer[start:stop], rate_columns, toc)
         quantiles[start:stop] = _linear_percentiles(toc, PERCENTILES)
-        report(0.3 + 0.7 * stop / n_offers)
+
+    helper_threads = ThreadPoolExecutor(max(1, n_workers - 1), thread_name_prefix="monte_carlo_helper")
+    with helper_threads as pool:
+        # A caller's rates_fn is called in order, on this thread: it need not be thread-safe.
+        _run_spans(
+            pool,
+            n_workers if rates_fn is None else 1,
+            _spans(n_draws, RATE_CHUNK_ELEMENTS),
+            rates_of,
+            lambda: None,
+            lambda done: report(0.05 * done / n_draws),
+        )
+        samples.clear()  # the draws are no longer needed
+        _run_spans(
+            pool,
+            n_workers,
+            _spans(n_draws, chunk * max(1, WINNER_TASK_ELEMENTS // (chunk * n_offers))),
+            winners_of,
+            lambda: np.empty((min(chunk, n_draws), n_offers)),
+            lambda done: report(0.05 + 0.25 * done / n_draws),
+        )
+
+        wins = np.bincount(winners, minlength=n_offers)
+        regret = _regret_sums(winners, wins, rate_rows, losses) / n_draws
+        toc_mean = rate_columns.mean(axis=1) @ losses
+        _run_spans(
+            pool,
+            n_workers,
+            _spans(n_offers, rows_per_block),
+            percentiles_of,
+            lambda: np.empty((rows_per_block, n_draws)),
+            lambda done: report(0.3 + 0.7 * done / n_offers),
+        )
 
     columns = zip(
         offers.offer_ids.tolist(),
@@ -1369,20 +1512,20 @@ def monte_carlo(
 def _toc_by_offer(losses_by_offer: np.ndarray, rates_by_column: np.ndarray, out: np.ndarray) -> None:
     """out[j, d] = losses_by_offer[j] . rates_by_column[:, d], in products of at most PRODUCT_ELEMENTS."""
     n_rows, n_draws = out.shape
-    if n_draws <= PRODUCT_ELEMENTS:
-        step = PRODUCT_ELEMENTS // n_draws
-        for start in range(0, n_rows, step):
-            stop = min(n_rows, start + step)
-            np.matmul(losses_by_offer[start:stop], rates_by_column, out=out[start:stop])
-        return
-    for row in range(n_rows):
-        for start in range(0, n_draws, PRODUCT_ELEMENTS):
-            stop = min(n_draws, start + PRODUCT_ELEMENTS)
-            # A one-row slice is contiguous, so matmul writes into it directly.
+    # Tiles as tall as the block, so that BLAS packs a tile's rates once for
+    # all its offers (full-width tiles of a few offers each took up to 1.6x
+    # as long, measured on blocks of 13 to 104 offers x 10,000 draws).
+    rows = min(n_rows, PRODUCT_ELEMENTS)
+    columns = max(1, PRODUCT_ELEMENTS // rows)
+    for top in range(0, n_rows, rows):
+        bottom = min(n_rows, top + rows)
+        for start in range(0, n_draws, columns):
+            stop = min(n_draws, start + columns)
+            # Each row of the tile is contiguous, so matmul writes into it directly.
             np.matmul(
-                losses_by_offer[row : row + 1],
+                losses_by_offer[top:bottom],
                 rates_by_column[:, start:stop],
-                out=out[row : row + 1, start:stop],
+                out=out[top:bottom, start:stop],
             )
 
 

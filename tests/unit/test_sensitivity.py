@@ -1,6 +1,8 @@
 """Sensitivity of the ranking: break-even rates, rate map, tornado, Monte Carlo (REFERENCE.md s.2-3)."""
 
 import math
+import threading
+import time
 
 import numpy as np
 import pytest
@@ -16,6 +18,7 @@ from domain import (
     rates_direct,
     total_owning_cost,
 )
+from domain import sensitivity
 from domain.rates import rates_present_worth
 from domain.sensitivity import (
     OfferArrays,
@@ -610,8 +613,10 @@ def test_sampled_inputs_stay_inside_their_distribution_bounds():
 
 def test_monte_carlo_progress_and_cancel():
     offers = OfferArrays.from_offers(FIVE_OFFERS)
+    # One thread, so one report per chunk; one offer per percentile block.
+    small = dict(chunk_size=100, percentile_block_bytes=8 * 1000, workers=1)
     fractions = []
-    monte_carlo(offers, BASE, PW_DISTRIBUTIONS, 1000, 0, chunk_size=100, progress=fractions.append)
+    monte_carlo(offers, BASE, PW_DISTRIBUTIONS, 1000, 0, **small, progress=fractions.append)
     assert fractions == sorted(fractions) and fractions[-1] == 1.0 and len(fractions) > 3
     calls = []
 
@@ -620,8 +625,113 @@ def test_monte_carlo_progress_and_cancel():
         return len(calls) >= 3
 
     with pytest.raises(SimulationCancelled):
-        monte_carlo(offers, BASE, PW_DISTRIBUTIONS, 1000, 0, chunk_size=100, should_stop=stop_on_third_check)
+        monte_carlo(offers, BASE, PW_DISTRIBUTIONS, 1000, 0, **small, should_stop=stop_on_third_check)
     assert len(calls) == 3
+
+
+def _many_offers(n_offers, seed):
+    """Random but plausible offers for a unit of about 1 MVA (as bench/bench_monte_carlo.py)."""
+    rng = np.random.default_rng(seed)
+    quality = rng.uniform(0.0, 1.0, n_offers)
+    return OfferArrays(
+        offer_ids=np.arange(1, n_offers + 1),
+        prices=95_000.0 + 40_000.0 * quality + rng.normal(0.0, 2_500.0, n_offers),
+        p0_w=1400.0 - 700.0 * quality + rng.normal(0.0, 60.0, n_offers),
+        pk_w=13000.0 - 5000.0 * quality + rng.normal(0.0, 500.0, n_offers),
+        paux_w=rng.uniform(0.0, 300.0, n_offers),
+    )
+
+
+def test_monte_carlo_gives_the_same_result_on_one_thread_or_several():
+    # Each chunk writes its own rows and the chunks do not depend on the thread count,
+    # so the result must be identical to the last bit; reference for the values:
+    # numpy.percentile and argmin on the whole TOC matrix of the same draws.
+    offers = _many_offers(60, seed=11)
+    draws = 40_000  # more than one chunk of rates (RATE_CHUNK_ELEMENTS)
+    small = dict(chunk_size=50, percentile_block_bytes=8 * draws * 7)  # several chunks in every pass
+    runs = {}
+    for workers in (1, 2, 3):
+        fractions = []
+        helpers = []
+
+        def count_helpers():
+            helpers.append(sum(t.name.startswith("monte_carlo_helper") for t in threading.enumerate()))
+            return False
+
+        runs[workers] = monte_carlo(
+            offers, BASE, PW_DISTRIBUTIONS, draws, seed=5, **small, workers=workers,
+            progress=fractions.append, should_stop=count_helpers,
+        )
+        assert fractions == sorted(fractions) and fractions[-1] == 1.0
+        assert max(helpers) == workers - 1  # the calling thread works too
+        if workers == 1:
+            assert len(fractions) >= 15  # one report per chunk: 3 of rates, 3 of winners, 9 of percentiles
+    assert runs[1] == runs[2] == runs[3]
+    assert sum(o.win_probability > 0 for o in runs[2].offers) >= 2
+
+    seen = []
+
+    def recording(inputs):
+        rates = present_worth_rates_vectorised(inputs)
+        seen.append(np.column_stack(rates))
+        return rates
+
+    threaded = monte_carlo(
+        offers, BASE, PW_DISTRIBUTIONS, draws, seed=5, rates_fn=recording, **small, workers=2
+    )
+    rates = np.concatenate(seen[1:])  # seen[0]: the base inputs
+    toc = offers.toc(rates[:, 0], rates[:, 1], rates[:, 2])  # (draws, offers)
+    shares = np.bincount(toc.argmin(axis=1), minlength=len(offers)) / draws
+    assert [o.win_probability for o in threaded.offers] == shares.tolist()
+    got = np.array([[o.toc_p5, o.toc_p50, o.toc_p95] for o in threaded.offers])
+    assert_allclose(got, np.percentile(toc, [5, 50, 95], axis=0).T, rtol=1e-12)
+    assert_allclose([o.toc_p50 for o in runs[2].offers], got[:, 1], rtol=1e-12)
+
+
+def test_monte_carlo_on_several_threads_stops_when_asked():
+    offers = _many_offers(200, seed=11)
+    draws = 12_000
+    small = dict(chunk_size=50, percentile_block_bytes=8 * draws * 7)
+    fractions = []
+    calls = []
+
+    def stop_in_the_percentiles():
+        # Past 0.3 the percentile pass runs, on two threads.
+        calls.append(1)
+        return bool(fractions) and fractions[-1] > 0.5
+
+    with pytest.raises(SimulationCancelled):
+        monte_carlo(
+            offers, BASE, PW_DISTRIBUTIONS, draws, seed=5, **small, workers=2,
+            progress=fractions.append, should_stop=stop_in_the_percentiles,
+        )
+    assert len(calls) == len(fractions) + 1  # no progress once it has been told to stop
+    assert 0.5 < fractions[-1] < 1.0
+    with pytest.raises(InvalidInput) as caught:
+        monte_carlo(offers, BASE, PW_DISTRIBUTIONS, draws, seed=5, workers=0)
+    assert caught.value.field == "workers"
+
+
+def test_an_error_on_a_helper_thread_reaches_the_caller(monkeypatch):
+    offers = _many_offers(200, seed=11)
+    draws = 12_000
+    real = sensitivity._linear_percentiles
+    failing_thread = []
+
+    def fails_off_the_calling_thread(block, percentiles):
+        if threading.current_thread() is threading.main_thread():
+            time.sleep(0.001)  # leave the helper time to start and take a block
+            return real(block, percentiles)
+        failing_thread.append(threading.current_thread().name)
+        raise ArithmeticError("broken block")
+
+    monkeypatch.setattr(sensitivity, "_linear_percentiles", fails_off_the_calling_thread)
+    with pytest.raises(ArithmeticError, match="broken block"):
+        monte_carlo(
+            offers, BASE, PW_DISTRIBUTIONS, draws, seed=5, percentile_block_bytes=8 * draws, workers=2
+        )
+    assert failing_thread and failing_thread[0].startswith("monte_carlo_helper")
+    assert not any(t.name.startswith("monte_carlo_helper") for t in threading.enumerate())
 
 
 @pytest.mark.parametrize(
