@@ -13,7 +13,6 @@ from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import Compiled
 from sqlalchemy.sql.expression import Executable
 from sqlalchemy.orm import Session, sessionmaker
-from starlette.concurrency import run_in_threadpool
 
 from server.storage import audit  # noqa: F401  (registers the audit hook on every session)
 from server.storage.generation import database_key
@@ -98,7 +97,7 @@ class Database:
         the server has dropped the connections (it restarted), the pool is checked and the read
         tried once more."""
         if self._async_pool is None or self._async_loop is not asyncio.get_running_loop():
-            return await run_in_threadpool(self.read_row, statement, params)
+            return await asyncio.to_thread(self.read_row, statement, params)
         sql, values = self._bind(statement, params)
         for attempt in (1, 2):
             try:
