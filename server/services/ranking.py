@@ -45,12 +45,17 @@ _RANKINGS = GenerationCache()
 
 def lot_ranking(session: Session, lot_id: int, include_non_compliant: bool = False) -> schemas.RankingOut:
     """The lot's ranking under its tender's cost basis revision (computed once per data generation)."""
+    return _shared_ranking(session, lot_id, include_non_compliant).model_copy(deep=True)
+
+
+def _shared_ranking(session: Session, lot_id: int, include_non_compliant: bool) -> schemas.RankingOut:
+    """The cached ranking itself: read it, never change it (``lot_ranking`` hands out copies)."""
 
     def compute() -> schemas.RankingOut:
         lot = get_lot(session, lot_id)
         return rank_lot(session, lot, lot.tender.cost_basis_revision, include_non_compliant)
 
-    return _RANKINGS.get_or_compute(session, ("ranking", lot_id, include_non_compliant), compute).model_copy(deep=True)
+    return _RANKINGS.get_or_compute(session, ("ranking", lot_id, include_non_compliant), compute)
 
 
 # ``lot_ranking`` as JSON, encoded once per data generation (the API's hot path).
@@ -58,7 +63,7 @@ RANKINGS_JSON = GenerationCache()
 
 
 def lot_ranking_json(session: Session, lot_id: int, include_non_compliant: bool = False) -> bytes:
-    return lot_ranking(session, lot_id, include_non_compliant).model_dump_json().encode()
+    return _shared_ranking(session, lot_id, include_non_compliant).model_dump_json().encode()
 
 
 def rank_lot(session: Session, lot: Lot, revision: CostBasisRevision,

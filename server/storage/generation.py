@@ -25,10 +25,13 @@ T = TypeVar("T")
 _KEY = "data_generation"
 
 
+_NEWEST = select(AuditEvent.id, AuditEvent.at).order_by(AuditEvent.id.desc()).limit(1)
+
+
 def generation_columns() -> tuple:
     """The newest audit event's id and time as scalar subqueries, to read along with other columns."""
-    newest = select(AuditEvent.id, AuditEvent.at).order_by(AuditEvent.id.desc()).limit(1)
-    return newest.with_only_columns(AuditEvent.id).scalar_subquery(), newest.with_only_columns(AuditEvent.at).scalar_subquery()
+    return (_NEWEST.with_only_columns(AuditEvent.id).scalar_subquery(),
+            _NEWEST.with_only_columns(AuditEvent.at).scalar_subquery())
 
 
 def generation_value(newest_id: int | None, newest_at: object) -> tuple:
@@ -60,10 +63,10 @@ def _forget(session: Session, *_args) -> None:
 
 def data_generation(session: Session) -> tuple:
     """The newest audit event's id and time (the time tells apart a database emptied and refilled)."""
-    known = session.info.get(_KEY)
+    known = remembered(session)
     if known is not None:
         return known
-    row = session.execute(select(AuditEvent.id, AuditEvent.at).order_by(AuditEvent.id.desc()).limit(1)).first()
+    row = session.execute(_NEWEST).first()
     return generation_value(*row) if row else (0, "")
 
 
