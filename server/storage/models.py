@@ -67,6 +67,8 @@ class CostBasisRevision(Base):
     aux_rate_per_kw: Mapped[float] = mapped_column(Float, nullable=False)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
     created_by: Mapped[str | None] = mapped_column(String(64))
+    # Why the planner made this revision (shown in the revision list and the audit trail).
+    change_reason: Mapped[str | None] = mapped_column(Text)
     cost_basis: Mapped[CostBasis] = relationship(back_populates="revisions")
 
 
@@ -133,6 +135,11 @@ class Lot(Versioned, Base):
     insulation: Mapped[str] = mapped_column(String(16), nullable=False)
     quantity: Mapped[int] = mapped_column(Integer, nullable=False)
     reference_temp_c: Mapped[float] = mapped_column(Float, nullable=False)
+    # Winding conductor ("copper" or "aluminium"): its temperature constant refers load losses.
+    conductor_material: Mapped[str] = mapped_column(String(16), nullable=False, default="copper",
+                                                    server_default="copper")
+    # Basic insulation level of the HV winding [kV]; picks the US medium-voltage dry-type column.
+    bil_kv: Mapped[float | None] = mapped_column(Float)
     max_no_load_loss_w: Mapped[float | None] = mapped_column(Float)
     max_load_loss_w: Mapped[float | None] = mapped_column(Float)
     impedance_pct: Mapped[float | None] = mapped_column(Float)
@@ -142,11 +149,21 @@ class Lot(Versioned, Base):
     load_growth_pct: Mapped[float | None] = mapped_column(Float)
     # Keys of the limit tables (built-in or user-defined) the offers must meet.
     limit_tables: Mapped[list[str]] = mapped_column(JSON, nullable=False, default=list)
+    # Set while an award stands: the revision that priced the award, kept when the tender moves on.
+    cost_basis_revision_id: Mapped[int | None] = mapped_column(
+        ForeignKey("cost_basis_revisions.id", ondelete="RESTRICT"), index=True
+    )
     load_shape: Mapped[LoadShape | None] = relationship()
+    cost_basis_revision: Mapped[CostBasisRevision | None] = relationship()
     tender: Mapped[Tender] = relationship(back_populates="lots")
     offers: Mapped[list[Offer]] = relationship(
         back_populates="lot", order_by="Offer.id", cascade="all, delete-orphan"
     )
+
+    @property
+    def pricing_revision(self) -> CostBasisRevision:
+        """The cost basis revision that prices this lot: its own while an award pins one, else its tender's."""
+        return self.cost_basis_revision or self.tender.cost_basis_revision
 
 
 class Offer(Versioned, Base):
@@ -164,6 +181,9 @@ class Offer(Versioned, Base):
     aux_loss_w: Mapped[float] = mapped_column(Float, nullable=False, default=0.0)
     impedance_pct: Mapped[float] = mapped_column(Float, nullable=False)
     no_load_current_pct: Mapped[float | None] = mapped_column(Float)
+    # Share of the guaranteed load loss that is I2R (resistive) at the guarantee temperature [%];
+    # None: the documented default applies when the loss is referred to another temperature.
+    i2r_share_pct: Mapped[float | None] = mapped_column(Float)
     delivery_weeks: Mapped[int | None] = mapped_column(Integer)
     notes: Mapped[str | None] = mapped_column(Text)
     lot: Mapped[Lot] = relationship(back_populates="offers")
@@ -253,6 +273,8 @@ class EvaluationRecord(Base):
     reopen_reason: Mapped[str | None] = mapped_column(Text)
     # Break-even sentences and a Monte Carlo at award time; outside the hashed inputs.
     robustness: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    # The award decision: chosen offer, margin, reason and acknowledged warnings (sealed with the inputs).
+    decision: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     lot: Mapped[Lot] = relationship()
 
 
@@ -289,7 +311,8 @@ class OfferImport(Base):
 
 
 class LimitTableReview(Base):
-    """A user's confirmation (or correction of status) of a built-in limit table."""
+    """A planner's review of a built-in rule (a limit table or a tolerance rule): its status after
+    checking it against ``document``. ``key`` is the rule's id."""
 
     __tablename__ = "limit_table_reviews"
 
@@ -297,6 +320,8 @@ class LimitTableReview(Base):
     key: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
     status: Mapped[str] = mapped_column(String(16), nullable=False)
     note: Mapped[str] = mapped_column(Text, nullable=False, default="")
+    # The document checked against: title, edition, clause, page.
+    document: Mapped[str] = mapped_column(String(300), nullable=False, default="", server_default="")
     reviewed_by: Mapped[str] = mapped_column(String(64), nullable=False)
     reviewed_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
 
