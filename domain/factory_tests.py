@@ -4,7 +4,8 @@ After award, the test certificate of each unit gives measured no-load loss, load
 (at the reference temperature, see ``domain.circuit.correct_load_loss_to_reference``),
 short-circuit impedance and no-load current. This module checks them against the
 guaranteed or declared values with the tolerances of IEC 60076-1 or IEEE C57.12.00 and
-prices the excess losses with the tender's capitalisation rates.
+prices the excess losses with the tender's capitalisation rates (nothing for a unit that is
+rejected and sent back).
 
 Losses in W, impedance and no-load current in percent (of rated voltage and rated
 current), rates in currency per kW. The verdict functions take one unit; the penalty
@@ -275,6 +276,7 @@ def loss_penalty(
     load_rate_per_kw: Any,
     multiplier: Any = 1.0,
     credit_below: bool = False,
+    rejected: Any = False,
 ) -> Penalty:
     """Penalty for measured losses above the guarantees, capitalised at the tender's rates.
 
@@ -291,6 +293,9 @@ def loss_penalty(
     credit_below : bool, optional
         When True, losses below the guarantee give a negative amount (a credit); when
         False (default, the usual rule) they give 0.
+    rejected : bool or array_like of bool, optional
+        Whether the unit is rejected under the contract terms (default False). A rejected
+        unit is sent back, not accepted with a charge: every part of its penalty is 0.
 
     Returns
     -------
@@ -302,7 +307,8 @@ def loss_penalty(
     -----
     no_load = A * multiplier * (P0 measured - P0 guaranteed) / 1000, and the same with
     B for the load loss; without credit each part is floored at 0 separately, so a
-    saving on one loss does not offset an excess on the other. NaN propagates.
+    saving on one loss does not offset an excess on the other. A rejected unit's parts
+    are 0 whatever its losses. NaN propagates, except for a rejected unit.
 
     References
     ----------
@@ -322,6 +328,9 @@ def loss_penalty(
         check_array_range(name, array, low=0.0)
     if not isinstance(credit_below, (bool, np.bool_)):
         raise InvalidInput("credit_below", f"must be True or False, got {credit_below!r}")
+    sent_back = np.asarray(rejected)
+    if sent_back.dtype != np.bool_:
+        raise InvalidInput("rejected", f"must be True or False for each unit, got {rejected!r}")
 
     excess_no_load_kw = (m0 - g0) / 1000.0
     excess_load_kw = (mk - gk) / 1000.0
@@ -330,6 +339,10 @@ def loss_penalty(
         excess_load_kw = np.maximum(excess_load_kw, 0.0)
     no_load = excess_no_load_kw * a * factor
     load = excess_load_kw * b * factor
+    try:
+        no_load, load = np.where(sent_back, 0.0, no_load), np.where(sent_back, 0.0, load)
+    except ValueError:
+        raise InvalidInput("rejected", f"shape {sent_back.shape} does not match the losses' {no_load.shape}") from None
     shape = np.broadcast_shapes(no_load.shape, load.shape)
     no_load, load = np.broadcast_to(no_load, shape), np.broadcast_to(load, shape)
     # + 0.0 turns a -0.0 (no excess times a rate) into 0.0 for display.

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import gc
 import io
+import math
 from collections.abc import Iterator
 from contextlib import contextmanager
 from itertools import chain, islice
@@ -68,6 +69,22 @@ def _chunks(rows: Iterator[list[Any]], rows_per_chunk: int) -> Iterator[list[lis
         if count > MAX_ROWS:
             raise ImportRefused("The file is too long.", [{"rows": [], "column": None, "message": f"more than {MAX_ROWS:,} rows"}])
         yield chunk
+
+
+def cell_text(value: Any) -> str:
+    """A cell as the text the user typed, for identifiers such as serial numbers.
+
+    CSV cells are text already and only lose the whitespace around them. A spreadsheet keeps a
+    number typed into a cell as a float, so 12345 arrives as 12345.0: an integer-valued float
+    becomes its integer text ("12345"); any other value is its plain text ("10.05"). An empty
+    cell (None) is "". Leading zeros a spreadsheet dropped from a number cannot be recovered:
+    they survive only in a cell formatted as text.
+    """
+    if value is None:
+        return ""
+    if isinstance(value, float) and math.isfinite(value) and value.is_integer():
+        return str(int(value))
+    return str(value).strip()
 
 
 def _present(cell: Any) -> bool:

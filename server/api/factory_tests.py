@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, File, UploadFile
+from fastapi import APIRouter, File, Response, UploadFile
 
 from server import schemas
 from server.auth import ANY_ROLE, BUYER
@@ -47,8 +47,26 @@ def import_certificates(lot_id: int, session: SessionDep,
             service.import_certificates(session, lot_id, file.filename or "", file.file.read())]
 
 
+@router.get("/lots/{lot_id}/test-certificates/template.csv", dependencies=[ANY_ROLE], response_class=Response,
+            responses={200: {"content": {"text/csv": {}}, "description": "The import file's header row."}})
+def certificate_template_csv(lot_id: int, session: SessionDep):
+    """The columns the certificate import accepts, as a CSV header with no rows (an awarded lot only)."""
+    return Response(service.template_csv(session, lot_id), media_type="text/csv; charset=utf-8",
+                    headers={"Content-Disposition": f'attachment; filename="lot-{lot_id}-certificates.csv"'})
+
+
+@router.get("/lots/{lot_id}/test-certificates/template.xlsx", dependencies=[ANY_ROLE], response_class=Response,
+            responses={200: {"content": {service.XLSX_MEDIA_TYPE: {}},
+                             "description": "The import workbook: the header, and a sheet describing each column."}})
+def certificate_template_xlsx(lot_id: int, session: SessionDep):
+    """The certificate import's columns as a workbook; the second sheet explains them with invented examples."""
+    return Response(service.template_xlsx(session, lot_id), media_type=service.XLSX_MEDIA_TYPE,
+                    headers={"Content-Disposition": f'attachment; filename="lot-{lot_id}-certificates.xlsx"'})
+
+
 @router.get("/lots/{lot_id}/test-certificates/summary", response_model=schemas.CertificateSummaryOut,
             dependencies=[ANY_ROLE])
 def certificate_summary(lot_id: int, session: SessionDep):
-    """Units tested, mean and worst deviation per loss, total penalty and rejected units."""
+    """Units tested, mean and worst deviation per loss, rejected units, and the total penalty of the
+    accepted units (a rejected unit is sent back and owes none)."""
     return service.lot_summary(session, lot_id)

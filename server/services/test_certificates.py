@@ -1,8 +1,10 @@
 """Use cases for factory test certificates: analyse readings, store certificates of an awarded
-lot's delivered units with their verdict and penalty, and summarise a lot."""
+lot's delivered units with their verdict and penalty, summarise a lot, and hand out the import
+file's template."""
 
 from __future__ import annotations
 
+import io
 import math
 from typing import Any
 
@@ -22,12 +24,13 @@ from domain.factory_tests import (
 from domain.routine_tests import Reading, routine_test_figures
 from server import schemas
 from server.errors import Conflict, ImportRefused, InvalidField
+from server.exports import write_csv
 from server.services.common import commit
 from server.services.locks import active_record
 from server.services.tenders import get_lot
 from server.storage import audit
 from server.storage.models import TestCertificate
-from server.tabular import read_table
+from server.tabular import cell_text, read_table
 
 
 def _reading(part: schemas.OpenCircuitIn | schemas.ShortCircuitIn) -> Reading:
@@ -124,17 +127,18 @@ def _build(session: Session, lot, record, offer: dict, data: schemas.Certificate
     tender = lot.tender
     analysis = analyse(_analysis_input(lot, tender, offer, data))
     rates = record.inputs["cost_basis"]
+    ok = bool(analysis.within_tolerance)
+    rejected = tender.reject_beyond_tolerance and not ok
     penalty = loss_penalty(offer["no_load_loss_w"], offer["load_loss_w"], analysis.no_load_loss_w,
                            analysis.load_loss_at_reference_w, rates["no_load_rate_per_kw"], rates["load_rate_per_kw"],
-                           tender.penalty_multiplier, tender.penalty_credit_below)
-    ok = bool(analysis.within_tolerance)
+                           tender.penalty_multiplier, tender.penalty_credit_below, rejected=rejected)
     return TestCertificate(
         lot_id=lot.id, offer_id=offer["id"], serial_number=data.serial_number, test_date=data.test_date,
         laboratory=data.laboratory, entered_by=audit.get_actor(session).username,
         readings=data.model_dump(mode="json"), no_load_loss_w=analysis.no_load_loss_w,
         load_loss_at_reference_w=analysis.load_loss_at_reference_w, impedance_pct=analysis.impedance_pct,
         no_load_current_pct=analysis.no_load_current_pct, within_tolerance=ok, penalty=float(penalty.total),
-        rejected=tender.reject_beyond_tolerance and not ok,
+        rejected=rejected,
     )
 
 
@@ -172,7 +176,7 @@ def certificate_out(c: TestCertificate) -> schemas.CertificateOut:
 
 
 def lot_summary(session: Session, lot_id: int) -> schemas.CertificateSummaryOut:
-    """Units tested, deviations from the guarantee, total penalty and rejections (vectorised)."""
+    """Units tested, deviations from the guarantee, rejections, and the penalty of the accepted units."""
     lot = get_lot(session, lot_id)
     record = active_record(session, lot.id)
     offer = next((o for o in record.inputs["offers"] if o["id"] == record.awarded_offer_id), None) if record else None
@@ -196,17 +200,79 @@ def lot_summary(session: Session, lot_id: int) -> schemas.CertificateSummaryOut:
         bidder=offer["bidder"] if offer else None, units_ordered=lot.quantity, units_tested=len(rows),
         guaranteed_no_load_loss_w=offer["no_load_loss_w"] if offer else None,
         guaranteed_load_loss_w=offer["load_loss_w"] if offer else None,
-        total_penalty=float(sum(r[2] for r in rows)), rejected_units=sum(1 for r in rows if r[3]),
+        # A rejected unit is sent back: whatever was stored for it, it owes nothing.
+        total_penalty=float(sum(r[2] for r in rows if not r[3])), rejected_units=sum(1 for r in rows if r[3]),
         outside_tolerance_units=sum(1 for r in rows if not r[4]),
         tolerance_standard=lot.tender.tolerance_standard, currency=lot.tender.currency, **stats,
     )
 
 
-CERTIFICATE_COLUMNS = (
-    "serial_number", "test_date", "laboratory", "conductor", "reference_temp_c",
-    "oc_side", "oc_voltage_v", "oc_current_a", "oc_power_w",
-    "sc_side", "sc_voltage_v", "sc_current_a", "sc_power_w", "sc_winding_temp_c", "sc_i2r_w",
-)
+# The import file's columns: what each holds, its unit, what an empty cell means, and an invented
+# example. The template's notes sheet lists them; the import accepts exactly these names.
+COLUMN_NOTES: dict[str, tuple[str, str, str, str | float]] = {
+    "serial_number": ("The unit's serial number, read as the text typed", "", "required", "EX-0001"),
+    "test_date": ("Date of the routine test", "YYYY-MM-DD", "required", "2027-05-02"),
+    "laboratory": ("Where the unit was tested", "", "required", "Works test bay (invented)"),
+    "conductor": ("Winding conductor: copper or aluminium", "", "copper", "copper"),
+    "reference_temp_c": ("Temperature the load loss is corrected to", "°C", "the lot's reference temperature", 75),
+    "oc_side": ("Winding supplied in the open-circuit test: hv or lv", "", "lv", "lv"),
+    "oc_voltage_v": ("Open-circuit test voltage", "V", "required", 400),
+    "oc_current_a": ("Open-circuit (no-load) current", "A", "required", 1.2),
+    "oc_power_w": ("Open-circuit power, the no-load loss", "W", "required", 410),
+    "sc_side": ("Winding supplied in the short-circuit test: hv or lv", "", "hv", "hv"),
+    "sc_voltage_v": ("Short-circuit test voltage", "V", "required", 800),
+    "sc_current_a": ("Short-circuit test current", "A", "required", 11.55),
+    "sc_power_w": ("Short-circuit power, the load loss at the test current", "W", "required", 4100),
+    "sc_winding_temp_c": ("Winding temperature during the short-circuit test", "°C", "required", 25),
+    "sc_i2r_w": ("Resistive part I²R at the test current and temperature", "W",
+                 "the whole load loss is corrected as resistive", 3500),
+}
+CERTIFICATE_COLUMNS = tuple(COLUMN_NOTES)
+XLSX_MEDIA_TYPE = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
+
+
+def template_csv(session: Session, lot_id: int) -> str:
+    """The import file's header row alone, for an awarded lot.
+
+    No example row: a row left in the file would be imported as a real unit's certificate, and
+    a stored certificate cannot be removed. The XLSX template carries an example on a sheet of
+    its own, which the import does not read.
+    """
+    _awarded(session, get_lot(session, lot_id))
+    return write_csv(CERTIFICATE_COLUMNS, [])
+
+
+def template_xlsx(session: Session, lot_id: int) -> bytes:
+    """The import workbook for an awarded lot: the header on the first sheet, the one the import
+    reads, with the serial number column formatted as text so that "0012" keeps its zeros; and a
+    second sheet describing each column with an invented example."""
+    from openpyxl import Workbook
+    from openpyxl.styles import Font
+
+    lot = get_lot(session, lot_id)
+    _awarded(session, lot)
+    book = Workbook()
+    sheet = book.active
+    sheet.title = "Certificates"
+    sheet.append(list(CERTIFICATE_COLUMNS))
+    for cell in sheet[1]:
+        cell.font = Font(bold=True)
+        sheet.column_dimensions[cell.column_letter].width = max(12, len(str(cell.value)) + 2)
+    sheet.column_dimensions["A"].number_format = "@"
+    sheet.freeze_panes = "A2"
+    notes = book.create_sheet("Columns")
+    notes.append(["column", "what it holds", "unit", "when empty", "example (invented)"])
+    for cell in notes[1]:
+        cell.font = Font(bold=True)
+    for name, (meaning, unit, empty, example) in COLUMN_NOTES.items():
+        notes.append([name, meaning, unit, empty, example])
+    notes.append([])
+    notes.append([f"Lot {lot.name}: one certificate a row on the first sheet; a file with any bad row stores nothing."])
+    for letter, width in zip("ABCDE", (20, 58, 12, 42, 24)):
+        notes.column_dimensions[letter].width = width
+    buffer = io.BytesIO()
+    book.save(buffer)
+    return buffer.getvalue()
 
 
 def import_certificates(session: Session, lot_id: int, filename: str, content: bytes) -> list[TestCertificate]:
@@ -223,7 +289,7 @@ def import_certificates(session: Session, lot_id: int, filename: str, content: b
     for number, row in enumerate(rows, start=2):
         raw = {name: (row[i] if i < len(row) and row[i] not in ("", None) else None) for i, name in enumerate(header)}
         body = {
-            "serial_number": str(raw.get("serial_number") or "").split(".0")[0] if raw.get("serial_number") else "",
+            "serial_number": cell_text(raw.get("serial_number")),
             "test_date": raw.get("test_date"), "laboratory": raw.get("laboratory"),
             "conductor": raw.get("conductor") or "copper", "reference_temp_c": raw.get("reference_temp_c"),
             "open_circuit": {"side": raw.get("oc_side") or "lv", "voltage_v": raw.get("oc_voltage_v"),

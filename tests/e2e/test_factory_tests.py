@@ -8,6 +8,7 @@ import io
 import pytest
 
 from tests import factories as f
+from tests.conftest import auth
 
 # REFERENCE.md section 7 worked check (textbook example, short-circuit data): 10 kVA 2000/400 V,
 # tested on the HV side at 100 V, 5 A, 100 W: Req = 4 ohm, |Zeq| = 20 ohm, Xeq = 8 sqrt(6) ohm;
@@ -153,3 +154,113 @@ def test_two_hundred_certificates_import_and_summary(client):
     r = client.post(f"/api/v1/lots/{lot_id}/test-certificates/import", files={"file": ("c.csv", bad.encode(), "text/csv")})
     assert r.status_code == 422 and r.json()["problems"][0]["rows"] == [2]
     assert client.get(f"/api/v1/lots/{lot_id}/test-certificates/summary").json()["units_tested"] == 200
+
+
+def test_a_rejected_unit_owes_no_penalty_and_the_summary_counts_it(client):
+    lot_id = _awarded_lot(client)  # the tender's default terms reject a unit outside tolerance
+    accepted = client.post(f"/api/v1/lots/{lot_id}/test-certificates", json=_certificate("S1", 420, 4100)).json()
+    assert accepted["penalty"] == pytest.approx(270.0)  # 20 W x 6000/kW + 100 W x 1500/kW, by hand
+    # No-load 470 W, +17.5 % > +15 % (IEC 60076-1 Table 1, as in test_certificates_need_...): rejected.
+    # Accepted, it would owe 70 W x 6000/kW = 420; sent back, it owes nothing.
+    rejected = client.post(f"/api/v1/lots/{lot_id}/test-certificates", json=_certificate("S2", 470, 4000)).json()
+    assert rejected["rejected"] and not rejected["within_tolerance"]
+    assert rejected["penalty"] == 0.0
+    listed = {c["serial_number"]: c for c in client.get(f"/api/v1/lots/{lot_id}/test-certificates").json()}
+    assert listed["S2"]["penalty"] == 0.0 and listed["S2"]["rejected"]
+    summary = client.get(f"/api/v1/lots/{lot_id}/test-certificates/summary").json()
+    assert (summary["units_tested"], summary["rejected_units"], summary["outside_tolerance_units"]) == (2, 1, 1)
+    assert summary["total_penalty"] == pytest.approx(270.0)  # the accepted unit's alone
+
+
+def test_a_unit_outside_tolerance_that_is_kept_owes_its_penalty(client):
+    lot_id = _awarded_lot(client, reference="T-KEEP", reject_beyond_tolerance=False)
+    kept = client.post(f"/api/v1/lots/{lot_id}/test-certificates", json=_certificate("S2", 470, 4000)).json()
+    assert not kept["within_tolerance"] and not kept["rejected"]
+    assert kept["penalty"] == pytest.approx(420.0)  # 70 W x 6000/kW, by hand
+    summary = client.get(f"/api/v1/lots/{lot_id}/test-certificates/summary").json()
+    assert (summary["rejected_units"], summary["outside_tolerance_units"]) == (0, 1)
+    assert summary["total_penalty"] == pytest.approx(420.0)
+
+
+# --- the import template and serial numbers as typed ---------------------------------------------
+
+def _filled_row(serial: object) -> dict[str, object]:
+    """One certificate row in the template's column names: a unit within tolerance (invented readings)."""
+    return {"serial_number": serial, "test_date": "2027-05-02", "laboratory": "Works bay (invented)",
+            "conductor": "copper", "reference_temp_c": 75, "oc_side": "lv", "oc_voltage_v": 400,
+            "oc_current_a": 1.2, "oc_power_w": 410, "sc_side": "hv", "sc_voltage_v": 800,
+            "sc_current_a": 400e3 / (3**0.5 * 20000), "sc_power_w": 4100, "sc_winding_temp_c": 75,
+            "sc_i2r_w": 3500}
+
+
+def test_cell_text_reads_a_cell_as_typed():
+    from server.tabular import cell_text
+
+    assert cell_text(None) == ""
+    for typed in ("TX-10.05", "0012", "A.0B", "2026.0A", "12345.0"):
+        assert cell_text(typed) == typed  # text is kept, ".0" and all
+        assert cell_text(f"  {typed} ") == typed
+    # A spreadsheet's number cell arrives as a float.
+    assert cell_text(12345.0) == "12345" and cell_text(-7.0) == "-7" and cell_text(12345) == "12345"
+    assert cell_text(10.05) == "10.05" and cell_text(1e20) == "100000000000000000000"
+    assert cell_text(float("inf")) == "inf"
+
+
+def test_csv_template_has_the_import_columns_and_imports_once_filled(client):
+    from server.services.test_certificates import CERTIFICATE_COLUMNS
+
+    lot_id = _awarded_lot(client)
+    r = client.get(f"/api/v1/lots/{lot_id}/test-certificates/template.csv", headers=auth("viewer"))
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/csv")
+    assert f'filename="lot-{lot_id}-certificates.csv"' in r.headers["content-disposition"]
+    rows = list(csv.reader(io.StringIO(r.text)))
+    assert rows == [list(CERTIFICATE_COLUMNS)]  # the header alone: no invented row to import by mistake
+
+    out = io.StringIO(r.text)
+    out.seek(0, io.SEEK_END)
+    writer = csv.DictWriter(out, fieldnames=rows[0], lineterminator="\r\n")
+    # "2026.0A" and "TX-10.05" were cut at ".0" before (to "2026" and "TX-1").
+    typed = ["TX-10.05", "0012", "A.0B", "2026.0A", " 12345.0 "]
+    for serial in typed:
+        writer.writerow(_filled_row(serial))
+    r = client.post(f"/api/v1/lots/{lot_id}/test-certificates/import",
+                    files={"file": ("filled.csv", out.getvalue().encode(), "text/csv")})
+    assert r.status_code == 201, r.text[:500]
+    assert sorted(c["serial_number"] for c in r.json()) == sorted(["TX-10.05", "0012", "A.0B", "2026.0A", "12345.0"])
+    stored = {c["serial_number"] for c in client.get(f"/api/v1/lots/{lot_id}/test-certificates").json()}
+    assert stored == {"TX-10.05", "0012", "A.0B", "2026.0A", "12345.0"}
+
+
+def test_xlsx_template_has_the_import_columns_and_imports_once_filled(client):
+    from openpyxl import load_workbook
+
+    from server.services.test_certificates import CERTIFICATE_COLUMNS
+
+    lot_id = _awarded_lot(client)
+    r = client.get(f"/api/v1/lots/{lot_id}/test-certificates/template.xlsx")
+    assert r.status_code == 200
+    assert r.headers["content-type"] == "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
+    book = load_workbook(io.BytesIO(r.content))
+    sheet, notes = book.worksheets
+    assert [c.value for c in sheet[1]] == list(CERTIFICATE_COLUMNS) and sheet.max_row == 1
+    assert sheet.column_dimensions["A"].number_format == "@"  # typed serial numbers stay text
+    assert [row[0] for row in notes.iter_rows(min_row=2, max_row=1 + len(CERTIFICATE_COLUMNS), values_only=True)] \
+        == list(CERTIFICATE_COLUMNS)
+
+    for serial in ("TX-10.05", "0012", "A.0B", 12345, 10.05):  # the last two typed as numbers
+        row = _filled_row(serial)
+        sheet.append([row[name] for name in CERTIFICATE_COLUMNS])
+    filled = io.BytesIO()
+    book.save(filled)
+    r = client.post(f"/api/v1/lots/{lot_id}/test-certificates/import",
+                    files={"file": ("filled.xlsx", filled.getvalue(), "application/octet-stream")})
+    assert r.status_code == 201, r.text[:500]
+    stored = {c["serial_number"] for c in client.get(f"/api/v1/lots/{lot_id}/test-certificates").json()}
+    assert stored == {"TX-10.05", "0012", "A.0B", "12345", "10.05"}
+
+
+def test_the_template_is_for_an_awarded_lot(client):
+    _, _, open_lot = f.setup_lot(client)
+    for kind in ("csv", "xlsx"):
+        assert client.get(f"/api/v1/lots/{open_lot}/test-certificates/template.{kind}").status_code == 409
+        assert client.get(f"/api/v1/lots/999999/test-certificates/template.{kind}").status_code == 404

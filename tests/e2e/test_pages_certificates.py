@@ -218,6 +218,65 @@ def test_a_bad_import_names_rows_and_columns_and_stores_nothing(page_client):
     assert page_client.get(f"/api/v1/lots/{lot_id}/test-certificates", headers=API).json() == []
 
 
+def test_a_rejected_unit_shows_no_penalty_and_the_summary_counts_it(page_client):
+    tender_id, lot_id = _awarded_lot(page_client)  # default terms: a unit outside tolerance is rejected
+    csrf = log_in(page_client, "buyer")
+    page_client.post(f"/lots/{lot_id}/certificates", data=_form(csrf), follow_redirects=False)
+    # 472 W no-load is +18 %, over IEC 60076-1's +15 % (Table 1): outside tolerance, so rejected.
+    # Accepted it would owe 72 W x 6 + 100 W x 1.5 = 582; sent back, nothing.
+    response = page_client.post(f"/lots/{lot_id}/certificates", data=_form(csrf, "S-002", oc_power_w="472"),
+                                follow_redirects=False)
+    assert response.status_code == 303
+    page = page_client.get(response.headers["location"]).text
+    words = _text(page)
+    assert ("Certificate of unit S-002 entered: outside tolerance, rejected under the contract terms: "
+            "it is sent back and carries no penalty.") in words
+    assert "Rejected 1 unit" in words and "Outside tolerance 1 unit" in words
+    assert "Total penalty, accepted units 210 EUR" in words  # S-001's 10 W x 6 + 100 W x 1.5 alone
+    row = re.search(r'<tr class="cert-row--fail">\s*<th scope="row">S-002</th>(.*?)</tr>', page, re.S).group(1)
+    assert re.findall(r'<td class="num">([^<]*)</td>', row)[-1] == "0" and "badge--rejected" in row
+    stored = {c["serial_number"]: c for c in page_client.get(f"/api/v1/lots/{lot_id}/test-certificates",
+                                                             headers=API).json()}
+    assert stored["S-002"]["rejected"] and stored["S-002"]["penalty"] == 0.0
+    assert "is rejected and sent back, with no penalty" in _text(page_client.get(f"/tenders/{tender_id}").text)
+
+
+def test_the_import_form_offers_templates_that_import_once_filled(page_client):
+    from openpyxl import load_workbook
+
+    _, lot_id = _awarded_lot(page_client)
+    csrf = log_in(page_client, "buyer")
+    page = page_client.get(f"/lots/{lot_id}/certificates").text
+    import_form = page[page.index('id="certificate-import"'):]
+    csv_link = f'<a href="/api/v1/lots/{lot_id}/test-certificates/template.csv" download>Download a template (CSV)</a>'
+    assert csv_link in import_form and f'href="/api/v1/lots/{lot_id}/test-certificates/template.xlsx"' in import_form
+    # The links work with the browser's session, as the page's other downloads do.
+    header = page_client.get(f"/api/v1/lots/{lot_id}/test-certificates/template.csv").text
+    assert header == "serial_number,test_date,laboratory,conductor,reference_temp_c,oc_side,oc_voltage_v," \
+                     "oc_current_a,oc_power_w,sc_side,sc_voltage_v,sc_current_a,sc_power_w,sc_winding_temp_c,sc_i2r_w\r\n"
+    book = load_workbook(io.BytesIO(page_client.get(f"/api/v1/lots/{lot_id}/test-certificates/template.xlsx").content))
+    sheet = book.worksheets[0]
+    columns = [c.value for c in sheet[1]]
+    values = {"test_date": "2027-05-02", "laboratory": "Works bay (invented)", "oc_voltage_v": 400,
+              "oc_current_a": 1.2, "oc_power_w": 405, "sc_voltage_v": 800, "sc_current_a": RATED_HV_A,
+              "sc_power_w": 4050, "sc_winding_temp_c": 75, "sc_i2r_w": 3400}
+    for serial in ("TX-10.05", "0012", "A.0B", 12345):  # 12345 typed as a number
+        sheet.append([serial if name == "serial_number" else values.get(name) for name in columns])
+    filled = io.BytesIO()
+    book.save(filled)
+    response = page_client.post(f"/lots/{lot_id}/certificates/import", data={"csrf_token": csrf},
+                                files={"file": ("filled.xlsx", filled.getvalue(), "application/octet-stream")},
+                                follow_redirects=False)
+    assert response.status_code == 303, response.text[:500]
+    page = page_client.get(response.headers["location"]).text
+    assert "Imported 4 certificates." in _text(page)
+    for serial in ("TX-10.05", "0012", "A.0B", "12345"):
+        assert f'<th scope="row">{serial}</th>' in page, serial
+    # A viewer has no import form, hence no template links.
+    log_in(page_client, "viewer")
+    assert "Download a template" not in page_client.get(f"/lots/{lot_id}/certificates").text
+
+
 def test_buyers_edit_the_contract_terms_on_the_tender_page(page_client):
     tender_id, lot_id = _awarded_lot(page_client)
     csrf = log_in(page_client, "buyer")

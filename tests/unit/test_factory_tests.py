@@ -189,6 +189,54 @@ def test_penalty_grows_with_the_excess(excess, rate, more):
     assert high >= low >= 0.0
 
 
+def test_a_rejected_unit_carries_no_penalty():
+    # Common practice, no source: a unit rejected under the contract is sent back, not accepted
+    # with a charge. The same unit accepted owes 1600 + 1000 (hand computed, as above).
+    accepted = loss_penalty(G0, GK, 1200.0, 10_500.0, 8000.0, 2000.0, rejected=False)
+    assert_allclose(accepted, (1600.0, 1000.0, 2600.0))
+    rejected = loss_penalty(G0, GK, 1200.0, 10_500.0, 8000.0, 2000.0, rejected=True)
+    assert isinstance(rejected.total, float)
+    assert tuple(rejected) == (0.0, 0.0, 0.0) and not np.signbit(rejected.total)
+    # Nor a credit, nor a missing reading: a unit sent back owes and earns nothing.
+    assert loss_penalty(G0, GK, 900.0, 9_000.0, 8000.0, 2000.0, credit_below=True, rejected=True).total == 0.0
+    assert loss_penalty(G0, GK, np.nan, 10_500.0, 8000.0, 2000.0, rejected=True).total == 0.0
+
+
+def test_rejection_vectorised_over_units():
+    # Units 1 and 3 rejected; the others priced as without the mask (hand computed: 800 and 500).
+    measured_p0 = np.array([1100.0, 1300.0, 1000.0, 1200.0])
+    measured_pk = np.array([10_000.0, 11_000.0, 10_250.0, 10_500.0])
+    rejected = np.array([False, True, False, True])
+    penalty = loss_penalty(G0, GK, measured_p0, measured_pk, 8000.0, 2000.0, rejected=rejected)
+    assert_allclose(penalty.no_load, [800.0, 0.0, 0.0, 0.0])
+    assert_allclose(penalty.load, [0.0, 0.0, 500.0, 0.0])
+    assert_allclose(penalty.total, [800.0, 0.0, 500.0, 0.0])
+    # One flag for every unit broadcasts like the other inputs.
+    assert_allclose(loss_penalty(G0, GK, measured_p0, measured_pk, 8000.0, 2000.0, rejected=True).total, 0.0)
+
+
+def test_rejection_flag_must_be_true_or_false_per_unit():
+    for bad in ("yes", 1, [0, 1], None):
+        with pytest.raises(InvalidInput) as caught:
+            loss_penalty(G0, GK, 1200.0, 10_500.0, 8000.0, 2000.0, rejected=bad)
+        assert caught.value.field == "rejected"
+    with pytest.raises(InvalidInput) as caught:
+        loss_penalty(G0, GK, [1200.0, 1100.0], 10_500.0, 8000.0, 2000.0, rejected=[True, False, True])
+    assert caught.value.field == "rejected"
+
+
+@given(
+    measured_p0=st.floats(0.0, 1e6),
+    measured_pk=st.floats(0.0, 1e6),
+    credit=st.booleans(),
+)
+def test_rejected_penalty_is_zero_and_accepted_is_the_default(measured_p0, measured_pk, credit):
+    assert loss_penalty(G0, GK, measured_p0, measured_pk, 8000.0, 2000.0, credit_below=credit,
+                        rejected=True).total == 0.0
+    assert (loss_penalty(G0, GK, measured_p0, measured_pk, 8000.0, 2000.0, credit_below=credit, rejected=False)
+            == loss_penalty(G0, GK, measured_p0, measured_pk, 8000.0, 2000.0, credit_below=credit))
+
+
 def test_summarise_deviations_hand_computed():
     # Three units guaranteed 1000 W: +5 %, -2 %, +12 % -> mean +5 %, worst +12 % (hand computed).
     summary = summarise_deviations(1000.0, [1050.0, 980.0, 1120.0])
