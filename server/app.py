@@ -131,6 +131,8 @@ def _error_handlers(app: FastAPI) -> None:
         body: dict = {"detail": exc.message}
         if isinstance(exc, Conflict) and exc.current is not None:
             body["current"] = exc.current
+        if isinstance(exc, Conflict) and exc.warnings is not None:
+            body["warnings"] = exc.warnings
         if isinstance(exc, ImportRefused):
             body["problems"] = exc.problems
         headers = {"WWW-Authenticate": "Bearer"} if exc.status_code == 401 else None

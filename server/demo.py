@@ -165,6 +165,12 @@ def seed_demo(session: Session) -> bool:
     """Seed the scenario into an empty database; return False (and change nothing) otherwise."""
     if not is_empty(session):
         return False
+    seed_scenario(session)
+    return True
+
+
+def seed_scenario(session: Session) -> Tender:
+    """The scenario's cost bases, load shapes, tender, lots and offers (users aside); returns the tender."""
     bases = [create_cost_basis(session, body) for body in COST_BASES]
     residential, industrial = (create_load_shape(session, body) for body in LOAD_SHAPES)
     # The pole-mounted lot serves houses, the 1000 kVA lot an industrial estate: each gets its own
@@ -196,7 +202,7 @@ def seed_demo(session: Session) -> bool:
                     impedance_pct=z, no_load_current_pct=i0, delivery_weeks=weeks,
                 ),
             )
-    return True
+    return tender
 
 
 def demo_fleet_csv(units: int = 600) -> bytes:

@@ -22,9 +22,10 @@ class Conflict(ServiceError):
 
     status_code = 409
 
-    def __init__(self, message: str, current: dict | None = None) -> None:
+    def __init__(self, message: str, current: dict | None = None, warnings: list[dict] | None = None) -> None:
         super().__init__(message)
         self.current = current
+        self.warnings = warnings
 
 
 class InvalidField(ServiceError):

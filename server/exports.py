@@ -40,7 +40,7 @@ RANKING_COLUMNS = (
     "rank", "offer_id", "bidder", "unit_price", "offer_currency", "offer_unit_price",
     "no_load_loss_w", "load_loss_w", "aux_loss_w",
     "capitalised_no_load", "capitalised_load", "capitalised_aux", "toc_per_unit", "toc_total",
-    "efficiency_50_pct", "compliant", "reasons",
+    "efficiency_50_pct", "compliant", "compliance", "reasons", "warnings",
 )
 BASIS_COLUMNS = (
     "currency", "cost_basis", "cost_basis_revision",
@@ -67,6 +67,7 @@ def ranking_cells(ranking: schemas.RankingOut) -> list[list[object]]:
         values["rank"] = "" if row.rank is None else row.rank
         values["compliant"] = "yes" if row.compliant else "no"
         values["reasons"] = "; ".join(row.reasons)
+        values["warnings"] = "; ".join(f"[{w.code}] {w.message}" for w in row.warnings)
         rows.append([
             round(values[c], 2) if c in money else round(values[c], 4) if c == "efficiency_50_pct" else values[c]
             for c in RANKING_COLUMNS
@@ -108,8 +109,16 @@ def write_xlsx(sheets: list[tuple[str, list[str], list[list[object]]]]) -> bytes
     return buffer.getvalue()
 
 
+LOADING_INPUTS = ("loss_factor", "peak_load_pu", "load_growth_pct")
+
+
 def ranking_xlsx(ranking: schemas.RankingOut, basis_inputs: dict, method: str) -> bytes:
-    """The ranking with its breakdown and compliance, and a sheet with the cost basis and rates."""
+    """The ranking with its breakdown and compliance, and a sheet with the cost basis and rates.
+
+    ``basis_inputs`` are the inputs that priced the lot: where the lot sets its own loading,
+    its loss factor, peak and growth replace the basis's (``server.services.loading.lot_inputs``),
+    and the sheet says which loading they came from.
+    """
     basis_rows: list[list[object]] = [
         ["cost basis", ranking.cost_basis_name],
         ["revision", ranking.cost_basis_revision],
@@ -121,8 +130,13 @@ def ranking_xlsx(ranking: schemas.RankingOut, basis_inputs: dict, method: str) -
         ["loading", ranking.loading.note],
         ["limit tables", ", ".join(ranking.limit_tables) or "none"],
     ]
+    if ranking.loading.load_shape_name:
+        basis_rows.append(["load shape", ranking.loading.load_shape_name])
     for key, value in sorted(basis_inputs.items()):
-        basis_rows.append([key, ", ".join(map(str, value)) if isinstance(value, list) else value])
+        if key == "method" or value is None:
+            continue
+        label = f"{key} (this lot's own)" if key in LOADING_INPUTS and ranking.loading.source == "lot" else key
+        basis_rows.append([label, ", ".join(map(str, value)) if isinstance(value, list) else value])
     return write_xlsx([
         ("Ranking", list(RANKING_COLUMNS), ranking_cells(ranking)),
         ("Cost basis", ["item", "value"], basis_rows),

@@ -8,7 +8,7 @@ from __future__ import annotations
 from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, StringConstraints, model_validator
+from pydantic import BaseModel, ConfigDict, Field, StringConstraints, ValidationInfo, field_validator, model_validator
 
 # Upper bounds reject absurd values (a typo of several orders of magnitude), not real units:
 # the largest power transformers are around 1,500 MVA with load losses of a few MW.
@@ -132,6 +132,11 @@ class CostBasisPatch(BaseModel):
     name: Name | None = None
     currency: Currency | None = None
     method: Literal["direct", "present_worth", "fixed_charge_rate"] | None = None
+    change_reason: Notes | None = Field(
+        default=None,
+        description="Why the inputs change: required (not blank) whenever the edit makes a new revision; "
+        "kept with the revision and in the audit trail. Ignored when nothing but the name or currency changes.",
+    )
 
 
 class RatesOut(BaseModel):
@@ -146,6 +151,13 @@ class CostBasisRevisionOut(RatesOut):
     inputs: dict[str, Any]
     created_at: datetime
     created_by: str | None = None
+    change_reason: str | None = Field(
+        default=None, description="Why this revision was made; null for a first revision (nothing to explain)."
+    )
+    warnings: list[dict[str, str]] = Field(
+        default_factory=list,
+        description="Inputs worth a second look, each {code, field, message}; allowed, they never stop a save.",
+    )
 
 
 class CostBasisOut(RatesOut):
@@ -158,6 +170,10 @@ class CostBasisOut(RatesOut):
     inputs: dict[str, Any]
     created_at: datetime
     updated_at: datetime
+    warnings: list[dict[str, str]] = Field(
+        default_factory=list,
+        description="The current revision's inputs worth a second look, each {code, field, message}.",
+    )
 
 
 class CostBasisDetailOut(CostBasisOut):
@@ -167,6 +183,7 @@ class CostBasisDetailOut(CostBasisOut):
 # --- tenders and lots ----------------------------------------------------------------------
 
 TenderStatus = Literal["draft", "evaluation", "awarded"]
+Conductor = Literal["copper", "aluminium"]
 
 
 class LotFields(Strict):
@@ -178,7 +195,13 @@ class LotFields(Strict):
     frequency_hz: Annotated[float, Field(gt=0, le=1000)] = 50.0
     insulation: Literal["liquid", "dry"] = "liquid"
     quantity: Annotated[int, Field(ge=1, le=1_000_000)] = 1
-    reference_temp_c: Annotated[float, Field(ge=-50, le=200)] = 75.0
+    reference_temp_c: Annotated[float, Field(ge=-50, le=200)] = Field(
+        default=75.0, description="Winding temperature at which the offers' load losses are guaranteed [C].")
+    conductor_material: Conductor = Field(
+        default="copper", description="Winding conductor; its temperature constant refers load losses.")
+    bil_kv: Annotated[float, Field(gt=0, le=3000)] | None = Field(
+        default=None, description="Basic insulation level of the HV winding [kV]; picks the column of the US "
+        "medium-voltage dry-type table (assumed from the voltage class when left out).")
     max_no_load_loss_w: LossW | None = None
     max_load_loss_w: LossW | None = None
     impedance_pct: Annotated[float, Field(gt=0, le=100)] | None = None
@@ -211,6 +234,8 @@ class LotPatch(Strict):
     insulation: Literal["liquid", "dry"] | None = None
     quantity: Annotated[int, Field(ge=1, le=1_000_000)] | None = None
     reference_temp_c: Annotated[float, Field(ge=-50, le=200)] | None = None
+    conductor_material: Conductor | None = None
+    bil_kv: Annotated[float, Field(gt=0, le=3000)] | None = None
     max_no_load_loss_w: LossW | None = None
     max_load_loss_w: LossW | None = None
     impedance_pct: Annotated[float, Field(gt=0, le=100)] | None = None
@@ -233,6 +258,8 @@ class LotOut(Out):
     insulation: str
     quantity: int
     reference_temp_c: float
+    conductor_material: str = "copper"
+    bil_kv: float | None = None
     max_no_load_loss_w: float | None
     max_load_loss_w: float | None
     impedance_pct: float | None
@@ -241,6 +268,11 @@ class LotOut(Out):
     load_growth_pct: float | None = None
     limit_tables: list[str] = Field(default_factory=list)
     offer_count: int = 0
+    priced_on_revision: int | None = Field(
+        default=None, description="The revision of the tender's cost basis that prices this lot.")
+    kept_by_award: bool = Field(
+        default=False, description="True while an award stands: the lot keeps the revision that priced the award "
+        "when the tender moves to another.")
 
 
 ExchangeRates = Annotated[
@@ -307,6 +339,17 @@ class TenderOut(BaseModel):
 
 # --- offers --------------------------------------------------------------------------------
 
+I2rSharePct = Annotated[float, Field(ge=50, le=100)]
+
+
+class WarningOut(BaseModel):
+    """Something that looks wrong; never a refusal. ``code`` is stable, ``field`` the offer field."""
+
+    code: str = ""
+    field: str
+    message: str
+
+
 class OfferCreate(Strict):
     bidder: Name
     unit_price: Annotated[float, Field(ge=0, le=MAX_PRICE)]
@@ -316,6 +359,9 @@ class OfferCreate(Strict):
     aux_loss_w: LossW = 0.0
     impedance_pct: Annotated[float, Field(gt=0, le=100)]
     no_load_current_pct: Pct | None = None
+    i2r_share_pct: I2rSharePct | None = Field(
+        default=None, description="Share of the guaranteed load loss that is I2R at the guarantee temperature [%]; "
+        "used when the loss is referred to a regulation's temperature (a documented default when left out).")
     delivery_weeks: Annotated[int, Field(ge=0, le=520)] | None = None
     notes: Notes | None = None
 
@@ -330,6 +376,7 @@ class OfferPatch(Strict):
     aux_loss_w: LossW | None = None
     impedance_pct: Annotated[float, Field(gt=0, le=100)] | None = None
     no_load_current_pct: Pct | None = None
+    i2r_share_pct: I2rSharePct | None = None
     delivery_weeks: Annotated[int, Field(ge=0, le=520)] | None = None
     notes: Notes | None = None
 
@@ -346,13 +393,20 @@ class OfferOut(Out):
     aux_loss_w: float
     impedance_pct: float
     no_load_current_pct: float | None
+    i2r_share_pct: float | None = None
     delivery_weeks: int | None
     notes: str | None
     created_at: datetime
     updated_at: datetime
+    warnings: list[WarningOut] = Field(
+        default_factory=list, description="What looks wrong in the figures (never a refusal): check them.")
 
 
 # --- ranking -------------------------------------------------------------------------------
+
+Verdict = Literal["compliant", "not compliant", "not assessed"]
+TIE_ORDER = "total owning cost per unit, then unit price, then bidder name (case-insensitive), then offer id"
+
 
 class RankingRowOut(BaseModel):
     rank: int | None = Field(description="Position among compliant offers; null for a non-compliant offer.")
@@ -362,7 +416,12 @@ class RankingRowOut(BaseModel):
     offer_currency: str = ""
     offer_unit_price: float = Field(0.0, description="As offered, in offer_currency.")
     compliant: bool = True
+    compliance: Verdict = Field(
+        "compliant", description="Not assessed: no limit table the lot names covers the unit; it ranks, flagged.")
     reasons: list[str] = Field(default_factory=list, description="Why a non-compliant offer does not rank.")
+    warnings: list[WarningOut] = Field(
+        default_factory=list, description="What looks wrong (plausibility, price, not assessed, left out on an "
+        "unverified rule); an award to this offer must acknowledge them.")
     no_load_loss_w: float
     load_loss_w: float
     aux_loss_w: float
@@ -400,6 +459,9 @@ class RankingOut(RatesOut):
     cost_basis_revision: int
     limit_tables: list[str] = Field(default_factory=list)
     excluded: int = Field(0, description="Non-compliant offers left out of the ranking.")
+    excluded_on_unverified: int = Field(0, description="Of those, offers left out only on rules nobody has verified.")
+    not_assessed: int = Field(0, description="Ranked offers that no limit table the lot names covers.")
+    tie_order: str = Field(TIE_ORDER, description="How equal totals are ordered.")
     rows: list[RankingRowOut]
 
 
@@ -408,6 +470,8 @@ class ErrorOut(BaseModel):
 
     detail: str
     current: dict[str, Any] | None = Field(default=None, description="With 409 on a stale edit: the stored values.")
+    warnings: list[dict[str, Any]] | None = Field(
+        default=None, description="With 409 on an award: the warnings to acknowledge (acknowledge_warnings).")
 
 
 class UnprocessableOut(BaseModel):
@@ -472,7 +536,18 @@ class AuditEventOut(Out):
     after: dict[str, Any] | None
 
 
+AwardReasonKind = Literal["delivery", "technical deviation", "clarification", "other"]
+
+
 class AwardIn(Strict):
+    offer_id: Annotated[int, Field(ge=1)] | None = Field(
+        default=None, description="The offer to award; default the lowest total owning cost among compliant offers.")
+    reason_kind: AwardReasonKind | None = Field(
+        default=None, description="Why an offer other than the lowest total owning cost wins (required then).")
+    reason: Annotated[str, StringConstraints(strip_whitespace=True, max_length=2000)] | None = Field(
+        default=None, description="The justification in words (required when the offer is not the lowest TOC).")
+    acknowledge_warnings: bool = Field(
+        default=False, description="Must be true when the chosen offer or the lot has warnings; else 409 lists them.")
     note: Notes | None = None
 
 
@@ -494,6 +569,9 @@ class EvaluationRecordOut(Out):
     inputs: dict[str, Any]
     ranking: list[dict[str, Any]]
     robustness: dict[str, Any] | None = None
+    decision: dict[str, Any] | None = Field(
+        default=None, description="The chosen offer, its margin to the next, the reason and the warnings "
+        "acknowledged, and who gave them.")
 
 
 class VerificationOut(BaseModel):
@@ -591,6 +669,7 @@ class RevisionDiffOut(BaseModel):
     revision: int
     against: int
     changes: list[FieldChangeOut]
+    change_reason: str | None = Field(default=None, description="Why revision `revision` was made.")
 
 
 class PreviewRowOut(BaseModel):
@@ -651,17 +730,16 @@ class FindingOut(BaseModel):
     source: str
     passed: bool | None = Field(description="null: the rule could not be applied to this unit (said in rule).")
     note: str = ""
-
-
-class WarningOut(BaseModel):
-    field: str
-    message: str
+    rule_id: str = ""
+    status: str = Field("user-defined", description="verified, from memory or user-defined")
+    unverified: bool = False
 
 
 class OfferComplianceOut(BaseModel):
     offer_id: int
     bidder: str
     compliant: bool
+    verdict: Verdict = "compliant"
     findings: list[FindingOut]
     warnings: list[WarningOut]
 
@@ -704,6 +782,7 @@ class LimitTablePatch(Strict):
 
 class LimitTableOut(BaseModel):
     key: str
+    table_id: str = ""
     name: str
     source: str
     status: str
@@ -716,11 +795,58 @@ class LimitTableOut(BaseModel):
     per_unit_load: float
     note: str = ""
     rows: list[dict[str, float | None]]
+    document: str | None = None
+    edition: str | None = None
+    clause: str | None = None
+    page: str | None = None
+    reference_temp_c: float | None = Field(
+        default=None, description="Winding temperature the table's load loss is stated at [C]; guarantees are "
+        "referred to it before the check.")
 
 
-class TableReviewIn(Strict):
+class RuleReviewIn(Strict):
+    """A review of a built-in rule: what it was checked against and the status that follows."""
+
     status: Literal["verified", "from memory"]
+    document: Annotated[str, StringConstraints(strip_whitespace=True, max_length=300)] = Field(
+        default="", validate_default=True, description="The document checked against: title, edition, clause "
+        "and page (required to mark a rule verified).")
     note: Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=2000)]
+
+    @field_validator("document")
+    @classmethod
+    def _verified_names_its_document(cls, document: str, info: ValidationInfo) -> str:
+        if info.data.get("status") == "verified" and not document:
+            raise ValueError("name the document you checked (title, edition, clause, page)")
+        return document
+
+
+TableReviewIn = RuleReviewIn
+
+
+class RuleReviewOut(BaseModel):
+    status: str
+    document: str
+    note: str
+    reviewed_by: str
+    reviewed_at: datetime
+
+
+class RuleOut(BaseModel):
+    """A built-in rule: a limit table, a tolerance or a constant from a standard."""
+
+    id: str
+    kind: Literal["limit table", "tolerance"]
+    family: str | None = Field(default=None, description="For a limit table: the key a lot names.")
+    name: str
+    document: str
+    edition: str
+    clause: str
+    page: str
+    shipped_status: str
+    status: str = Field(description="The latest review's status, else the shipped one.")
+    note: str = ""
+    reviews: list[RuleReviewOut] = Field(default_factory=list, description="Newest first.")
 
 
 class ImportCellOut(BaseModel):
@@ -901,7 +1027,8 @@ class CertificateOut(BaseModel):
     impedance_pct: float
     no_load_current_pct: float
     within_tolerance: bool
-    penalty: float
+    penalty: float = Field(description="Capitalised excess loss owed by the supplier (negative: a credit); "
+                                       "0 for a rejected unit, which is sent back.")
     rejected: bool
     readings: dict[str, Any]
 
@@ -918,8 +1045,8 @@ class CertificateSummaryOut(BaseModel):
     no_load_deviation_worst_pct: float | None
     load_deviation_mean_pct: float | None
     load_deviation_worst_pct: float | None
-    total_penalty: float
-    rejected_units: int
+    total_penalty: float = Field(description="Sum of the accepted units' penalties; rejected units owe none.")
+    rejected_units: int = Field(description="Units outside tolerance and rejected under the tender's terms.")
     outside_tolerance_units: int
     tolerance_standard: str
     currency: str
@@ -1143,15 +1270,18 @@ class RateMapOut(BaseModel):
 
 class TornadoIn(Strict):
     ranges: dict[SensitivityInput, Annotated[list[float], Field(min_length=2, max_length=2)]] = Field(
-        default_factory=dict, description="Low and high value per input; inputs left out get ±20 % (±2 points for rates)."
+        default_factory=dict, description="Low and high value per input; inputs left out get ±20 % (±2 points for rates). "
+        "A value outside the input's allowed range (the cost basis form's) is moved to the range's edge."
     )
 
 
 class TornadoRowOut(BaseModel):
     input: str
     base_value: float
-    low_value: float
+    low_value: float = Field(description="As used: a value asked outside the input's allowed range is moved to its edge.")
     high_value: float
+    low_clipped: bool = Field(False, description="The low value asked lay outside the input's allowed range.")
+    high_clipped: bool = Field(False, description="The high value asked lay outside the input's allowed range.")
     margin_base: float
     margin_low: float
     margin_high: float

@@ -36,6 +36,11 @@ def present_worth_basis(**overrides: Any) -> dict[str, Any]:
     return {**body, **overrides}
 
 
+def revision(version: int, reason: str = "Test change of inputs", **changes: Any) -> dict[str, Any]:
+    """A cost basis PATCH body that makes a new revision: the version read, a reason, the changes."""
+    return {"version": version, "change_reason": reason, **changes}
+
+
 def lot(**overrides: Any) -> dict[str, Any]:
     body = {
         "name": "400 kVA ground-mounted",

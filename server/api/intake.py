@@ -10,10 +10,9 @@ from server import schemas
 from server.auth import ANY_ROLE, BUYER, PLANNER
 from server.api.responses import FILE_REFUSED
 from server.deps import SessionDep
-from server.exports import ranking_xlsx
 from server.services import compliance, offer_imports
 from server.services.efficiency_curves import lot_efficiency_curves
-from server.services.ranking import lot_ranking
+from server.services import ranking
 from server.services.tenders import get_lot
 
 router = APIRouter()
@@ -97,10 +96,24 @@ def patch_limit_table(key: str, patch: schemas.LimitTablePatch, session: Session
     return compliance.table_out(compliance.user_table(row), row)
 
 
+@router.get("/rules", response_model=list[schemas.RuleOut], dependencies=[ANY_ROLE], tags=["compliance"])
+def list_rules(session: SessionDep):
+    """Every built-in rule (limit tables, tolerances, constants): where it is written, its status, its reviews."""
+    return compliance.list_rules(session)
+
+
+@router.post("/rules/{rule_id}/review", response_model=schemas.RuleOut, dependencies=[PLANNER], tags=["compliance"])
+def review_rule(rule_id: str, data: schemas.RuleReviewIn, session: SessionDep):
+    """Record that a built-in rule was checked against a document (required to mark it verified); audited."""
+    return compliance.review_rule(session, rule_id, data)
+
+
 @router.post("/limit-tables/{key}/review", response_model=schemas.LimitTableOut, dependencies=[PLANNER],
              tags=["compliance"])
 def review_limit_table(key: str, data: schemas.TableReviewIn, session: SessionDep):
-    """Mark a built-in table verified after checking it against the official text (or withdraw that)."""
+    """Review every built-in table of family ``key`` at once (one table: ``POST /rules/{table_id}/review``).
+
+    Marking them verified needs the ``document`` checked against."""
     return compliance.review_built_in(session, key, data)
 
 
@@ -114,7 +127,5 @@ def efficiency_curves(lot_id: int, session: SessionDep):
 @router.get("/lots/{lot_id}/ranking.xlsx", dependencies=[ANY_ROLE], tags=["offers and ranking"],
             response_class=Response, responses={200: {"content": {XLSX: {}}, "description": "The ranking workbook."}})
 def ranking_workbook(lot_id: int, session: SessionDep, include_non_compliant: bool = True):
-    ranking = lot_ranking(session, lot_id, include_non_compliant)
-    revision = get_lot(session, lot_id).tender.cost_basis_revision
-    return Response(ranking_xlsx(ranking, revision.inputs, revision.method), media_type=XLSX,
+    return Response(ranking.ranking_workbook(session, lot_id, include_non_compliant), media_type=XLSX,
                     headers={"Content-Disposition": f'attachment; filename="lot-{lot_id}-ranking.xlsx"'})

@@ -18,22 +18,22 @@ router = APIRouter(tags=["offers and ranking"])
 
 @router.post("/lots/{lot_id}/offers", status_code=201, response_model=schemas.OfferOut, dependencies=[BUYER])
 def add_offer(lot_id: int, data: schemas.OfferCreate, session: SessionDep):
-    return service.offer_out(service.add_offer(session, lot_id, data))
+    return service.offer_out(session, service.add_offer(session, lot_id, data))
 
 
 @router.get("/lots/{lot_id}/offers", response_model=list[schemas.OfferOut], dependencies=[ANY_ROLE])
 def list_offers(lot_id: int, session: SessionDep):
-    return [service.offer_out(o) for o in service.list_offers(session, lot_id)]
+    return service.offers_out(session, service.list_offers(session, lot_id))
 
 
 @router.get("/offers/{offer_id}", response_model=schemas.OfferOut, dependencies=[ANY_ROLE])
 def get_offer(offer_id: int, session: SessionDep):
-    return service.offer_out(service.get_offer(session, offer_id))
+    return service.offer_out(session, service.get_offer(session, offer_id))
 
 
 @router.patch("/offers/{offer_id}", response_model=schemas.OfferOut, dependencies=[BUYER])
 def patch_offer(offer_id: int, patch: schemas.OfferPatch, session: SessionDep):
-    return service.offer_out(service.patch_offer(session, offer_id, patch))
+    return service.offer_out(session, service.patch_offer(session, offer_id, patch))
 
 
 @router.delete("/offers/{offer_id}", status_code=204, dependencies=[BUYER])

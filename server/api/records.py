@@ -54,8 +54,14 @@ def audit_csv(
 @router.post("/lots/{lot_id}/award", status_code=201, response_model=schemas.EvaluationRecordOut,
              dependencies=[APPROVER], tags=["awards"])
 def award_lot(lot_id: int, data: schemas.AwardIn, session: SessionDep):
-    """Award the lot to its lowest-TOC offer; freezes the evaluation and locks the lot."""
-    return awards.award_lot(session, lot_id, data.note)
+    """Award the lot; freezes the evaluation and locks the lot.
+
+    ``offer_id`` defaults to the lowest total owning cost among compliant offers. Another
+    compliant offer needs ``reason_kind`` and ``reason``. When the chosen offer has warnings
+    (implausible figures, not assessed) or an offer was left out only on an unverified rule,
+    ``acknowledge_warnings`` must be true: otherwise 409 lists the warnings and nothing is stored.
+    """
+    return awards.award_lot(session, lot_id, data)
 
 
 @router.post("/lots/{lot_id}/reopen", response_model=schemas.EvaluationRecordOut,

@@ -8,32 +8,9 @@ from typing import Any
 from pydantic_core import PydanticUndefined
 
 from server import schemas
+# The words of the boxes live with the service: the API's warnings name the inputs as the boxes do.
+from server.services.cost_bases import INPUT_WORDING, input_label
 
-# Label, unit and hint of every method input; "{cur}" becomes the basis's currency.
-_WORDING: dict[str, tuple[str, str, str]] = {
-    "no_load_rate_per_kw": ("A, no-load loss rate", "{cur}/kW", ""),
-    "load_rate_per_kw": ("B, load loss rate", "{cur}/kW", ""),
-    "aux_rate_per_kw": ("C, auxiliary loss rate", "{cur}/kW", ""),
-    "energy_price_per_kwh": ("Energy price", "{cur}/kWh", "In year 1."),
-    "energy_escalation_pct": ("Energy price escalation e", "% a year", ""),
-    "capacity_cost_per_kw_year": ("Capacity cost", "{cur}/kW a year", ""),
-    "discount_rate_pct": ("Discount rate", "% a year", ""),
-    "years": ("Evaluation period n", "years", ""),
-    "peak_load_pu": ("Peak load", "per unit", "Of the rating, in year 1."),
-    "load_growth_pct": ("Peak load growth g", "% a year", ""),
-    "loss_factor": ("Loss factor", "0 to 1", ""),
-    "responsibility_factor": ("Responsibility factor", "0 to 1", "Share of the peak that falls at the system peak."),
-    "cooling_hours_per_year": ("Cooling in service", "hours a year", ""),
-    "system_capacity_cost_per_kw_year": ("System capacity cost", "{cur}/kW a year", ""),
-    "energy_cost_per_kwh": ("Energy cost", "{cur}/kWh", ""),
-    "fixed_charge_rate_pct": ("Fixed charge rate", "% a year", ""),
-    "energy_price_path_per_kwh": (
-        "Energy price path", "{cur}/kWh", "Optional: one price for each year 1 to n, one per line or separated by "
-        "commas. It replaces the price and its escalation.",
-    ),
-    "carbon_price_per_t": ("Carbon price", "{cur}/t CO\u2082", "Added to every year's energy price."),
-    "emission_factor_t_per_mwh": ("Grid emission factor", "t CO\u2082/MWh", "Of the energy that covers the losses."),
-}
 
 @dataclass(frozen=True)
 class InputBox:
@@ -53,7 +30,7 @@ def method_boxes(method: str, currency: str = "") -> list[InputBox]:
     for name, info in model.model_fields.items():
         if name == "method":
             continue
-        label, unit, hint = _WORDING.get(name, (input_label(name), "", ""))
+        label, unit, hint = INPUT_WORDING.get(name, (input_label(name), "", ""))
         # Without a currency yet, "/kW" alone still says what the number is.
         unit = unit.format(cur=currency) if currency else unit.replace("{cur}", "").lstrip()
         default = None if info.default is PydanticUndefined else info.default
@@ -78,10 +55,6 @@ def price_path_coverage(values: dict[str, Any]) -> dict[str, Any] | None:
     except ValueError:
         n = None
     return {"prices": len(path), "years": n, "matches": n == len(path)}
-
-
-def input_label(name: str) -> str:
-    return _WORDING[name][0] if name in _WORDING else name.replace("_", " ").capitalize()
 
 
 def chosen_method(value: str | None, fallback: str = "direct") -> str:

@@ -11,7 +11,7 @@ from server import schemas
 from server.auth import ANY_ROLE, PLANNER
 from server.deps import SessionDep
 from server.errors import Conflict, InvalidField
-from server.pages import views
+from server.pages import planning_views, views
 from server.pages.basis_form import chosen_method
 from server.pages.forms import FormDep, FormValues, field_errors, full_inputs
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
@@ -38,7 +38,7 @@ def _typed(form: FormValues) -> dict[str, str]:
 def cost_basis_list(request: Request, session: SessionDep):
     """The list and the new-basis form; htmx asks here for another method's boxes."""
     typed = dict(request.query_params)
-    boxes = views.editor_boxes(None, typed)
+    boxes = planning_views.with_warnings(views.editor_boxes(None, typed))
     if is_htmx(request):
         return render(request, "cost_bases/_method_inputs.html", boxes)
     return render(request, "cost_bases/list.html", views.cost_basis_list(session) | boxes | {"form": typed})
@@ -56,7 +56,7 @@ def create_cost_basis(request: Request, session: SessionDep, form: FormDep):
     else:
         return see_other(request, f"/cost-bases/{basis.id}")
     method = chosen_method(form.get("method"))
-    boxes = views.method_inputs(method, _typed(form), form.get("currency", ""), errors)
+    boxes = planning_views.with_warnings(views.method_inputs(method, _typed(form), form.get("currency", ""), errors))
     context = views.cost_basis_list(session) | boxes | {"form": form, "errors": errors}
     return page_or_partial(request, "cost_bases/list.html", "cost_bases/_new_form.html", context, status_code=422)
 
@@ -65,8 +65,11 @@ def create_cost_basis(request: Request, session: SessionDep, form: FormDep):
 def preview_rates(request: Request, form: FormDep):
     """A, B, C for the inputs as typed; nothing is stored."""
     method = chosen_method(form.get("method"))
-    preview = views.rates_preview(full_inputs(form, schemas.METHOD_MODELS[method]) | {"method": method})
-    return render(request, "cost_bases/_preview.html", {"preview": preview, "currency": form.get("currency", "")})
+    values = full_inputs(form, schemas.METHOD_MODELS[method]) | {"method": method}
+    currency = form.get("currency", "")
+    preview = views.rates_preview(values)
+    preview["warnings"] = planning_views.typed_warnings(values, currency) if preview["rates"] else []
+    return render(request, "cost_bases/_preview.html", {"preview": preview, "currency": currency})
 
 
 @router.get("/cost-bases/{cost_basis_id:int}", dependencies=[ANY_ROLE])
@@ -74,7 +77,7 @@ def cost_basis_detail(request: Request, cost_basis_id: int, session: SessionDep,
     """The editor; htmx asks here for another method's boxes, keeping what was typed."""
     context = views.cost_basis_detail(session, cost_basis_id)
     typed = dict(request.query_params)
-    boxes = views.editor_boxes(context["basis"], typed)
+    boxes = planning_views.with_warnings(views.editor_boxes(context["basis"], typed))
     if is_htmx(request):
         return render(request, "cost_bases/_method_inputs.html", boxes)
     form = views.basis_form(context["basis"]) | {k: v for k, v in typed.items() if k in ("name", "currency", "version")}
@@ -86,7 +89,9 @@ def revise_cost_basis(request: Request, cost_basis_id: int, session: SessionDep,
     """Save: changed inputs make a new revision; a stale version saves nothing."""
     conflict = None
     try:
-        patch = schemas.CostBasisPatch.model_validate(_basis_data(form) | {"version": form.get("version", "")})
+        patch = schemas.CostBasisPatch.model_validate(
+            _basis_data(form) | {"version": form.get("version", ""), "change_reason": form.get("change_reason", "")}
+        )
         basis = service.revise_cost_basis(session, cost_basis_id, patch)
     except ValidationError as exc:
         errors, status = field_errors(exc), 422
@@ -101,12 +106,13 @@ def revise_cost_basis(request: Request, cost_basis_id: int, session: SessionDep,
         if not is_htmx(request):
             return see_other(request, f"/cost-bases/{cost_basis_id}?saved={revision}")
         context = views.cost_basis_detail(session, cost_basis_id)
-        context |= views.editor_boxes(context["basis"], {}) | {"form": views.basis_form(context["basis"])}
+        context |= planning_views.with_warnings(views.editor_boxes(context["basis"], {}))
+        context |= {"form": views.basis_form(context["basis"])}
         return render(request, "cost_bases/_body.html", context | {"saved": revision})
     context = views.cost_basis_detail(session, cost_basis_id)
     if conflict is not None:
         form = form | {"version": str(context["basis"].version)}
     method = chosen_method(form.get("method"))
-    boxes = views.method_inputs(method, _typed(form), form.get("currency", ""), errors)
+    boxes = planning_views.with_warnings(views.method_inputs(method, _typed(form), form.get("currency", ""), errors))
     context |= boxes | {"form": form, "errors": errors, "conflict": conflict}
     return page_or_partial(request, "cost_bases/detail.html", "cost_bases/_body.html", context, status)

@@ -176,6 +176,8 @@ def plain_message(error: dict[str, Any]) -> str:
         return f"must be one of {ctx.get('expected')}"
     if kind == "extra_forbidden":
         return "is not a field of this form"
+    if kind == "value_error" and ctx.get("error") is not None:
+        return str(ctx["error"]).rstrip(".")  # our own validator's words, without pydantic's "Value error, "
     return str(error.get("msg", "is not valid")).rstrip(".")
 
 

@@ -98,8 +98,7 @@ def compliance_view(session: Session, lot_id: int) -> dict[str, Any]:
     by_key = {c.key: c for c in choices}
     tables = compliance.all_tables(session)
     rules = [
-        LotRule(by_key[key], tuple(t.name for t in tables_for(
-            key, lot.phases, lot.insulation, lot.rating_kva, lot.lv_kv, lot.hv_kv, tables)))
+        LotRule(by_key[key], tuple(t.name for t in tables_for(key, compliance.unit_facts(lot), tables)))
         for key in lot.limit_tables or [] if key in by_key
     ]
     return {

@@ -174,13 +174,14 @@ def _detail(session, key: str, **extra: Any) -> dict[str, Any]:
         "key": key,
         "tables": tables,
         "first": first,
-        "review": pages_intake.latest_reviews(session).get(key),
+        "rules": {rule.id: rule for rule in compliance.list_rules(session)},
+        "review_table": None,
         "kinds": intake_views.KIND_NAMES,
         "columns": ROW_COLUMNS.get(first.kind, ()),
         "edit_form": edit_form,
         "edit_errors": {},
         "conflict": None,
-        "review_form": {"status": "verified" if first.status == "from memory" else "from memory"},
+        "review_form": {},
         "review_errors": {},
         "saved": None,
     } | extra
@@ -223,13 +224,49 @@ def save_limit_table(request: Request, key: str, session: SessionDep, form: Form
 
 @router.post("/limit-tables/{key}/review", dependencies=[PLANNER])
 def review_limit_table(request: Request, key: str, session: SessionDep, form: FormDep):
-    """Mark a built-in table verified after checking the official text (or withdraw that)."""
+    """Mark one built-in table verified against a named document (or withdraw that)."""
+    table_id = form.get("table_id") or None
     try:
-        data = schemas.TableReviewIn.model_validate({"status": form.get("status", ""), "note": form.get("note", "")})
-        compliance.review_built_in(session, key, data)
+        compliance.review_built_in(session, key, review_data(form), table_id)
+    except ValidationError as exc:
+        errors = field_errors(exc)
+    except InvalidField as exc:
+        views.discard(session)
+        errors = {exc.field: exc.detail}
+    else:
+        return see_other(request, f"/limit-tables/{key}?saved=review#{table_id or ''}")
+    context = _detail(session, key) | {"review_table": table_id, "review_form": form, "review_errors": errors}
+    return render(request, "limit_tables/detail.html", context, 422)
+
+
+def review_data(form: FormValues) -> schemas.RuleReviewIn:
+    return schemas.RuleReviewIn.model_validate(
+        {"status": form.get("status", ""), "document": form.get("document", ""), "note": form.get("note", "")})
+
+
+@router.get("/rules", dependencies=[ANY_ROLE])
+def rule_list(request: Request, session: SessionDep, saved: str | None = None):
+    """Every built-in rule: limit tables, tolerances and constants, with source, status and reviews."""
+    return render(request, "limit_tables/rules.html", _rules_page(session, saved=saved))
+
+
+def _rules_page(session, **extra: Any) -> dict[str, Any]:
+    rules = compliance.list_rules(session)
+    return {
+        "table_rules": [r for r in rules if r.kind == "limit table"],
+        "tolerance_rules": [r for r in rules if r.kind == "tolerance"],
+        "review_table": None, "review_form": {}, "review_errors": {}, "saved": None,
+    } | extra
+
+
+@router.post("/rules/{rule_id}/review", dependencies=[PLANNER])
+def review_rule(request: Request, rule_id: str, session: SessionDep, form: FormDep):
+    """Mark a built-in tolerance or constant verified against a named document (or withdraw that)."""
+    try:
+        compliance.review_rule(session, rule_id, review_data(form))
     except ValidationError as exc:
         errors = field_errors(exc)
     else:
-        return see_other(request, f"/limit-tables/{key}?saved=review")
-    context = _detail(session, key) | {"review_form": form, "review_errors": errors}
-    return render(request, "limit_tables/detail.html", context, 422)
+        return see_other(request, f"/rules?saved={rule_id}#{rule_id}")
+    context = _rules_page(session, review_table=rule_id, review_form=form, review_errors=errors)
+    return render(request, "limit_tables/rules.html", context, 422)

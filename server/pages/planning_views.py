@@ -9,11 +9,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from pydantic import ValidationError
 from sqlalchemy.orm import Session
 
 from domain.rates import carbon_cost_per_kwh
 from server import schemas
 from server.pages.basis_form import method_boxes
+from server.pages.forms import full_inputs
 from server.pages.shape_charts import (
     MONTH_NAMES,
     daily_curves_chart,
@@ -21,8 +23,8 @@ from server.pages.shape_charts import (
     monthly_average_day_chart,
     unit_label,
 )
-from server.pages.templating import DASH, METHOD_NAMES, fmt_number, fmt_plain, fmt_rate
-from server.services import load_shapes, pages_planning
+from server.pages.templating import DASH, METHOD_NAMES, fmt_number, fmt_plain, fmt_rate, input_value
+from server.services import cost_bases, load_shapes, pages_planning
 
 # --- load shapes ------------------------------------------------------------------------------
 
@@ -75,6 +77,33 @@ def tender_loadings(session: Session, tender_id: int) -> dict[str, Any]:
     loadings = pages_planning.tender_loadings(session, tender_id)
     kinds = {(x.source, x.load_shape_id, x.loss_factor, x.peak_load_pu, x.load_growth_pct) for x in loadings.values()}
     return {"loadings": loadings, "loadings_differ": len(kinds) > 1, "shapes": shape_choices(session)}
+
+
+# --- warnings beside a cost basis's inputs ---------------------------------------------------------
+
+
+def typed_warnings(values: dict[str, Any], currency: str) -> list[dict[str, str]]:
+    """What in a method's inputs as typed (every box, as ``full_inputs`` gives them, and the
+    method) is worth a second look; none while they do not yet read as inputs."""
+    try:
+        inputs = cost_bases.parse_inputs(values)
+    except ValidationError:
+        return []
+    return cost_bases.basis_warnings(inputs, currency)
+
+
+def with_warnings(boxes: dict[str, Any]) -> dict[str, Any]:
+    """A method's boxes (``views.method_inputs``) with the warnings of their values beside the
+    derived rates; while the rates cannot be derived, the problems come first and no warning shows."""
+    preview = boxes["preview"]
+    warnings: list[dict[str, str]] = []
+    if preview.get("rates") is not None:
+        method = boxes["method"]
+        # The boxes hold what was typed or stored; read them as the preview of the rates did.
+        typed = {k: input_value(v) for k, v in boxes["values"].items()}
+        warnings = typed_warnings(full_inputs(typed, schemas.METHOD_MODELS[method]) | {"method": method},
+                                  boxes["currency"])
+    return boxes | {"preview": preview | {"warnings": warnings}}
 
 
 # --- cost basis revisions -----------------------------------------------------------------------
@@ -179,6 +208,13 @@ def compare_choice(basis: schemas.CostBasisDetailOut, typed: dict[str, str]) -> 
         if not value.isdigit() or int(value) not in numbers
     }
     return chosen, errors
+
+
+def change_reasons(basis: schemas.CostBasisDetailOut, revision: int, against: int) -> list[tuple[int, str]]:
+    """The reasons given for the revisions that lead from one of two revisions to the other
+    (each after the earlier, up to the later); an empty text where none was recorded."""
+    low, high = sorted((revision, against))
+    return [(r.revision, r.change_reason or "") for r in basis.revisions if low < r.revision <= high]
 
 
 def revision_by_number(basis: schemas.CostBasisDetailOut, number: int) -> schemas.CostBasisRevisionOut | None:

@@ -49,16 +49,45 @@ def _shown(value: Any) -> str:
     return DASH if value is None else str(value)
 
 
+LOADING_INPUTS = ("loss_factor", "peak_load_pu", "load_growth_pct")
+
+
+def priced_inputs(basis: Mapping[str, Any]) -> tuple[dict[str, Any], set[str]]:
+    """The inputs that priced the lot and the names the lot's own loading replaced.
+
+    Records keep the inputs as they priced the lot (``priced_inputs``); older ones keep the
+    revision's inputs and the loading used, which is laid over them here.
+    """
+    loading = basis.get("loading") or {}
+    inputs = dict(basis.get("priced_inputs") or basis.get("inputs") or {})
+    if loading.get("source") != "lot":
+        return inputs, set()
+    own = {name for name in LOADING_INPUTS if loading.get(name) is not None and name in inputs}
+    for name in own:
+        inputs[name] = loading[name]
+    return inputs, own
+
+
 def basis_inputs(basis: Mapping[str, Any], currency: str) -> list[tuple[str, str, str]]:
-    """The frozen cost basis inputs as (label, value as text, unit), in the editor's order."""
+    """The inputs that priced the lot as (label, value as text, unit), in the editor's order; where the
+    lot set its own loading, those values replace the basis's and their label says so."""
+    inputs, own = priced_inputs(basis)
     # An optional input left empty (None) took no part in the rates: leave it out.
-    stored = {k: v for k, v in (basis.get("inputs") or {}).items() if k != "method" and v is not None}
+    stored = {k: v for k, v in inputs.items() if k != "method" and v is not None}
     try:
         boxes = method_boxes(basis["method"], currency)
     except KeyError:  # a method this version no longer knows: show the inputs as stored
         boxes = []
-    rows = [(box.label, _shown(stored.pop(box.name)), box.unit) for box in boxes if box.name in stored]
-    return rows + [(input_label(name), _shown(value), "") for name, value in stored.items()]
+
+    def label(name: str, text: str) -> str:
+        return f"{text} (this lot's own)" if name in own else text
+
+    rows = [(label(box.name, box.label), _shown(stored.pop(box.name)), box.unit) for box in boxes if box.name in stored]
+    rows += [(label(name, input_label(name)), _shown(value), "") for name, value in stored.items()]
+    shape = (basis.get("loading") or {}).get("load_shape_name")
+    if own and shape:
+        rows.append(("Load shape (this lot's own)", str(shape), ""))
+    return rows
 
 
 def report_view(record: Any, verification: Mapping[str, Any]) -> dict[str, Any]:

@@ -31,11 +31,12 @@ def compare_revisions(request: Request, cost_basis_id: int, session: SessionDep)
     context = _basis(session, cost_basis_id)
     basis = context["basis"]
     chosen, errors = planning_views.compare_choice(basis, dict(request.query_params))
-    rows, status = None, 422
+    rows, reasons, status = None, [], 422
     if not errors:
         diff = service.diff_revisions(session, cost_basis_id, int(chosen["revision"]), int(chosen["against"]))
         rows, status = planning_views.diff_rows(diff, basis), 200
-    context |= {"compare": chosen, "compare_errors": errors, "diff_rows": rows}
+        reasons = planning_views.change_reasons(basis, diff.revision, diff.against)
+    context |= {"compare": chosen, "compare_errors": errors, "diff_rows": rows, "reasons": reasons}
     return page_or_partial(request, "cost_bases/revision_compare.html", "cost_bases/_revision_diff.html",
                            context, status)
 
@@ -68,7 +69,8 @@ def revision_workings(request: Request, cost_basis_id: int, revision: int, sessi
 
 @router.post("/tenders/{tender_id:int}/revision", dependencies=[BUYER])
 def move_tender(request: Request, tender_id: int, session: SessionDep, form: FormDep):
-    """Move the tender to another revision of its basis: an audited tender edit that an awarded lot refuses."""
+    """Move the tender to another revision of its basis: an audited tender edit that re-prices the open lots
+    (an awarded lot keeps the revision of its award)."""
     status = 422
     try:
         patch = schemas.TenderPatch.model_validate(

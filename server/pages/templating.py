@@ -59,6 +59,25 @@ def fmt_pct(value: Any) -> str:
     return fmt_number(value, 2)
 
 
+def fmt_loss(value: Any) -> str:
+    """Losses in W: whole watts with separators from 100 W up; below that up to four significant
+    digits, so that a loss typed as 0.43 (kW in a W box) shows as 0.43, never as 0."""
+    if not _finite(value):
+        return DASH
+    if abs(value) >= 100 or value == 0:
+        return fmt_number(value, 0)
+    rounded = float(f"{value:.4g}")
+    return f"{rounded:.6f}".rstrip("0").rstrip(".")
+
+
+def warnings_by_field(warnings: Any) -> dict[str, list[str]]:
+    """An offer's warning messages grouped by the field they concern, for showing beside each value."""
+    grouped: dict[str, list[str]] = {}
+    for warning in warnings or []:
+        grouped.setdefault(warning.field, []).append(warning.message)
+    return grouped
+
+
 def fmt_plain(value: Any) -> str:
     """A measured quantity as entered (20, 0.4, 11.5), with thousands separators."""
     if not _finite(value):
@@ -115,6 +134,8 @@ templates.env.filters.update(
     rate=fmt_rate,
     pct=fmt_pct,
     plain=fmt_plain,
+    loss=fmt_loss,
+    warnings_by_field=warnings_by_field,
     input_value=input_value,
     sentence=sentence,
     method_name=lambda m: METHOD_NAMES.get(m, m),

@@ -23,9 +23,10 @@ from server.services import awards, cost_bases, locks, offers, pages_support, ra
 # The offer boxes in the order the forms and the offers table show them.
 OFFER_FIELDS = [
     "bidder", "unit_price", "currency", "no_load_loss_w", "load_loss_w", "aux_loss_w",
-    "impedance_pct", "no_load_current_pct", "delivery_weeks", "notes",
+    "impedance_pct", "no_load_current_pct", "i2r_share_pct", "delivery_weeks", "notes",
 ]
-LOT_DEFAULTS = {"phases": "3", "frequency_hz": "50", "insulation": "liquid", "quantity": "1"}
+LOT_DEFAULTS = {"phases": "3", "frequency_hz": "50", "insulation": "liquid", "quantity": "1", "reference_temp_c": "75",
+                "conductor_material": "copper"}
 
 
 def basis_choices(session: Session) -> list[schemas.CostBasisDetailOut]:
@@ -91,6 +92,38 @@ def award_state(session: Session, lot_id: int) -> dict[str, Any]:
     }
 
 
+REASON_KIND_CHOICES = [("", "Choose why"), ("delivery", "Delivery"), ("technical deviation", "Technical deviation"),
+                       ("clarification", "Clarification"), ("other", "Other")]
+
+
+def award_confirmation(session: Session, lot_id: int, offer_id: int | None,
+                       form: dict[str, str] | None = None, errors: dict[str, str] | None = None) -> dict[str, Any]:
+    """What an award of ``offer_id`` (default the lowest TOC) would record: the chosen offer, its margin
+    to the best other offer, the warnings to acknowledge and, for another than the lowest, the reason boxes."""
+    plan = awards.plan_award(session, lot_id, offer_id)
+    lot = plan.inputs["lot"]
+    chosen = plan.chosen["offer_id"]
+    return {
+        "confirm": {
+            "lot_id": lot_id,
+            "chosen": plan.chosen,
+            "lowest": plan.lowest,
+            "is_lowest": plan.is_lowest,
+            "next_best": plan.next_best,
+            "margin_per_unit": plan.margin_per_unit,
+            "margin_total": None if plan.margin_per_unit is None else plan.margin_per_unit * lot["quantity"],
+            "margin_pct": plan.margin_pct,
+            "warnings": plan.warnings,
+            "currency": plan.inputs["tender"]["currency"],
+            "revision": plan.inputs["cost_basis"]["revision"],
+            "choices": [(row["offer_id"], row["bidder"], row["toc_per_unit"]) for row in plan.ranking],
+        },
+        "confirm_form": (form or {}) | {"offer_id": str(chosen)},
+        "confirm_errors": errors or {},
+        "reason_kinds": REASON_KIND_CHOICES,
+    }
+
+
 def awarded_row(record: Any) -> dict[str, Any]:
     """The frozen ranking row of the offer a record awarded."""
     return next((row for row in record.ranking if row["offer_id"] == record.awarded_offer_id), {})
@@ -105,7 +138,7 @@ def lot_detail(session: Session, lot_id: int, include_non_compliant: bool = Fals
         "currency": lot.tender.currency,
         "editing": {},
         "offer_boxes": OFFER_FIELDS,
-        "offers": [offers.offer_out(o) for o in offers.list_offers(session, lot_id)],
+        "offers": offers.offers_out(session, offers.list_offers(session, lot_id)),
         "currencies": intake_views.currency_choices(lot.tender.currency, lot.tender.exchange_rates or {}),
         **ranking_view(session, lot_id, include_non_compliant),
         **award_state(session, lot_id),
@@ -123,7 +156,7 @@ def offer_values(offer: schemas.OfferOut) -> dict[str, Any]:
 def offer_row(session: Session, offer_id: int) -> dict[str, Any]:
     offer = offers.get_offer(session, offer_id)
     return {
-        "offer": offers.offer_out(offer),
+        "offer": offers.offer_out(session, offer),
         "currency": offer.lot.tender.currency,
         "currencies": intake_views.currency_choices(offer.lot.tender.currency, offer.lot.tender.exchange_rates or {}),
         "locked": locks.active_record(session, offer.lot_id) is not None,

@@ -5,35 +5,36 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+from dataclasses import dataclass, field
 from typing import Any
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from domain.limits import is_compliant
 from domain.rates import CapitalisationRates
 from domain.toc import OfferLosses, rank_offers
+from server import schemas
 from server.errors import Conflict, InvalidField
-from server.services.compliance import all_tables, offer_findings, reason
-from server.services.loading import lot_rates
+from server.services.loading import lot_inputs, lot_rates
 from server.services.locks import active_record, ensure_open
-from server.services.ranking import price_in_tender_currency
+from server.services.ranking import assessed_offers
 from server.services.robustness import award_robustness
 from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
 from server.storage import audit
-from server.storage.models import EvaluationRecord, Lot, Offer, utcnow
+from server.storage.models import EvaluationRecord, Lot, utcnow
 from server.version import VERSION
 
 _OFFER_FIELDS = (
     "id", "bidder", "unit_price", "no_load_loss_w", "load_loss_w", "aux_loss_w",
-    "impedance_pct", "no_load_current_pct", "delivery_weeks",
+    "impedance_pct", "no_load_current_pct", "i2r_share_pct", "delivery_weeks",
 )
 _LOT_FIELDS = (
     "id", "name", "rating_kva", "phases", "hv_kv", "lv_kv", "frequency_hz", "insulation",
-    "quantity", "reference_temp_c", "max_no_load_loss_w", "max_load_loss_w", "impedance_pct",
-    "load_shape_id", "peak_load_pu", "load_growth_pct", "limit_tables",
+    "quantity", "reference_temp_c", "conductor_material", "bil_kv", "max_no_load_loss_w", "max_load_loss_w",
+    "impedance_pct", "load_shape_id", "peak_load_pu", "load_growth_pct", "limit_tables",
 )
+REASON_KINDS = ("delivery", "technical deviation", "clarification", "other")
 
 
 def canonical_hash(inputs: dict[str, Any]) -> str:
@@ -42,38 +43,49 @@ def canonical_hash(inputs: dict[str, Any]) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
+def sealed_material(inputs: dict[str, Any], decision: dict[str, Any] | None) -> dict[str, Any]:
+    """What the record's SHA-256 covers: the frozen inputs, and the award decision where there is one
+    (records written before decisions were kept seal their inputs alone)."""
+    return inputs if decision is None else {"inputs": inputs, "decision": decision}
+
+
 def freeze_inputs(session: Session, lot: Lot) -> dict[str, Any]:
     """Everything the ranking depends on, as plain data, decided as the live ranking decides it.
 
-    Each offer carries its price in the tender's currency (at the tender's fixed rate) and its
-    compliance verdict with reasons, so the frozen ranking excludes what the live one excludes
-    even if a limit table or an exchange rate changes later.
+    Each offer carries its price in the tender's currency (at the tender's fixed rate), its
+    compliance verdict with reasons and its warnings, so the frozen ranking excludes what the
+    live one excludes even if a limit table or an exchange rate changes later. The cost basis
+    part keeps the revision that priced the lot and the inputs as they priced it (the lot's own
+    loading where it sets one).
     """
     tender = lot.tender
-    revision = tender.cost_basis_revision
+    revision = lot.pricing_revision
     rates, loading = lot_rates(lot, revision)
-    offers = session.scalars(select(Offer).where(Offer.lot_id == lot.id).order_by(Offer.id)).all()
-    tables = all_tables(session)
+    priced, _, _ = lot_inputs(lot, revision)
+    offers, prices, assessed = assessed_offers(session, lot)
     frozen_offers = []
     for offer in offers:
-        findings = offer_findings(lot, offer, tables)
+        check = assessed[offer.id]
         frozen_offers.append({
-            **{field: getattr(offer, field) for field in _OFFER_FIELDS},
+            **{name: getattr(offer, name) for name in _OFFER_FIELDS},
             "currency": offer.currency or tender.currency,
-            "price_in_tender_currency": price_in_tender_currency(offer, tender),
-            "compliant": is_compliant(findings),
-            "reasons": [reason(f) for f in findings if f.passed is False],
+            "price_in_tender_currency": prices[offer.id],
+            "compliant": check.compliant,
+            "compliance": check.verdict,
+            "reasons": check.reasons,
+            "warnings": [{"code": w.code, "field": w.field, "message": w.message} for w in check.warnings],
         })
     return {
         "tender": {"id": tender.id, "reference": tender.reference, "title": tender.title, "currency": tender.currency,
                    "exchange_rates": dict(tender.exchange_rates or {})},
-        "lot": {field: getattr(lot, field) for field in _LOT_FIELDS},
+        "lot": {name: getattr(lot, name) for name in _LOT_FIELDS},
         "cost_basis": {
             "id": revision.cost_basis_id,
             "name": revision.cost_basis.name,
             "revision": revision.revision,
             "method": revision.method,
             "inputs": revision.inputs,
+            "priced_inputs": priced.model_dump(),
             "loading": loading.model_dump(),
             "no_load_rate_per_kw": rates.no_load_rate_per_kw,
             "load_rate_per_kw": rates.load_rate_per_kw,
@@ -109,30 +121,144 @@ def rank_frozen(inputs: dict[str, Any]) -> list[dict[str, Any]]:
     ]
 
 
-def award_lot(session: Session, lot_id: int, note: str | None = None) -> EvaluationRecord:
-    """Award the lot to its lowest-TOC offer and freeze the evaluation."""
+@dataclass
+class AwardPlan:
+    """An award as it would be made now: the chosen offer, its margin, and what must be acknowledged.
+
+    ``margin_per_unit`` is the best other compliant offer's TOC minus the chosen offer's
+    [currency per unit]: positive when the chosen offer costs least (how far ahead it is),
+    negative when another offer costs less (how much more the chosen one costs).
+    """
+
+    lot: Lot
+    inputs: dict[str, Any]
+    ranking: list[dict[str, Any]]
+    chosen: dict[str, Any]
+    warnings: list[dict[str, Any]] = field(default_factory=list)
+
+    @property
+    def lowest(self) -> dict[str, Any]:
+        return self.ranking[0]
+
+    @property
+    def is_lowest(self) -> bool:
+        return self.chosen["offer_id"] == self.lowest["offer_id"]
+
+    @property
+    def next_best(self) -> dict[str, Any] | None:
+        """The best compliant offer other than the chosen one."""
+        return next((row for row in self.ranking if row["offer_id"] != self.chosen["offer_id"]), None)
+
+    @property
+    def margin_per_unit(self) -> float | None:
+        other = self.next_best
+        return None if other is None else other["toc_per_unit"] - self.chosen["toc_per_unit"]
+
+    @property
+    def margin_pct(self) -> float | None:
+        margin = self.margin_per_unit
+        toc = self.chosen["toc_per_unit"]
+        return None if margin is None or toc == 0 else 100.0 * margin / toc
+
+    def decision(self, data: schemas.AwardIn, who: str) -> dict[str, Any]:
+        other = self.next_best
+        margin = self.margin_per_unit
+        return {
+            "offer_id": self.chosen["offer_id"], "bidder": self.chosen["bidder"], "rank": self.chosen["rank"],
+            "toc_per_unit": self.chosen["toc_per_unit"],
+            "lowest_offer_id": self.lowest["offer_id"], "lowest_bidder": self.lowest["bidder"],
+            "is_lowest_toc": self.is_lowest,
+            "next_offer_id": other["offer_id"] if other else None, "next_bidder": other["bidder"] if other else None,
+            "margin_per_unit": margin, "margin_total": None if margin is None else margin * self.inputs["lot"]["quantity"],
+            "margin_pct": self.margin_pct,
+            "reason_kind": data.reason_kind,
+            "reason": data.reason or None, "note": data.note or None,
+            "warnings": self.warnings, "warnings_acknowledged": bool(self.warnings) and data.acknowledge_warnings,
+            "acknowledged_by": who if self.warnings else None, "decided_by": who,
+            "cost_basis_revision": self.inputs["cost_basis"]["revision"], "tie_order": schemas.TIE_ORDER,
+        }
+
+
+def _award_warnings(inputs: dict[str, Any], chosen_id: int) -> list[dict[str, Any]]:
+    """The chosen offer's own warnings, then every other offer left out only on unverified rules."""
+    out = []
+    for offer in inputs["offers"]:
+        for warning in offer.get("warnings", []):
+            if offer["id"] == chosen_id or warning["code"] == "excluded_on_unverified_rule":
+                out.append({**warning, "offer_id": offer["id"], "bidder": offer["bidder"]})
+    return out
+
+
+def plan_award(session: Session, lot_id: int, offer_id: int | None = None) -> AwardPlan:
+    """What an award of ``offer_id`` (default: the lowest total owning cost) would record; nothing is stored."""
     lot = get_lot(session, lot_id)
     ensure_open(session, lot)
     inputs = freeze_inputs(session, lot)
     ranking = rank_frozen(inputs)
     if not ranking:
         raise InvalidField("lot", "has no compliant offers to award.")
+    chosen_id = ranking[0]["offer_id"] if offer_id is None else offer_id
+    chosen = next((row for row in ranking if row["offer_id"] == chosen_id), None)
+    if chosen is None:
+        offer = next((o for o in inputs["offers"] if o["id"] == chosen_id), None)
+        if offer is None:
+            raise InvalidField("offer_id", f"offer {chosen_id} is not an offer of lot '{lot.name}'.")
+        raise InvalidField("offer_id", f"the offer from {offer['bidder']} is not compliant and cannot be awarded: "
+                                       + "; ".join(offer["reasons"]))
+    return AwardPlan(lot, inputs, ranking, chosen, _award_warnings(inputs, chosen_id))
+
+
+def award_lot(session: Session, lot_id: int, data: schemas.AwardIn | None = None) -> EvaluationRecord:
+    """Award the lot and freeze the evaluation.
+
+    The lowest total owning cost wins unless the approver names another compliant offer with a
+    reason; any warning on the chosen offer (or an offer left out on an unverified rule) must be
+    acknowledged, else 409 lists them and nothing is stored. The lot keeps the revision that
+    priced the award while the award stands.
+    """
+    data = data or schemas.AwardIn()
+    plan = plan_award(session, lot_id, data.offer_id)
+    if not plan.is_lowest and (data.reason_kind is None or not data.reason):
+        field_name = "reason_kind" if data.reason_kind is None else "reason"
+        raise InvalidField(field_name, f"the offer from {plan.chosen['bidder']} is not the lowest total owning cost "
+                                       f"({plan.lowest['bidder']} is): say why it wins (delivery, technical "
+                                       "deviation, clarification or other) and give the justification.")
+    if plan.warnings and not data.acknowledge_warnings:
+        raise Conflict(
+            f"The award to {plan.chosen['bidder']} has {len(plan.warnings)} warning(s) to acknowledge; nothing was "
+            "stored. Check each one, then award again with acknowledge_warnings set.",
+            warnings=plan.warnings,
+        )
+    lot = plan.lot
+    who = audit.get_actor(session).username
+    decision = plan.decision(data, who)
     record = EvaluationRecord(
         lot=lot,
-        awarded_by=audit.get_actor(session).username,
-        awarded_offer_id=ranking[0]["offer_id"],
+        awarded_by=who,
+        awarded_offer_id=plan.chosen["offer_id"],
         software_version=VERSION,
-        inputs=inputs,
-        ranking=ranking,
-        sha256=canonical_hash(inputs),
+        inputs=plan.inputs,
+        ranking=plan.ranking,
+        decision=decision,
+        sha256=canonical_hash(sealed_material(plan.inputs, decision)),
     )
+    lot.cost_basis_revision = lot.pricing_revision
     session.add(record)
     session.flush()
     record.robustness = award_robustness(session, lot.id)
-    audit.record(session, "award", "lot", lot.id,
-                 f"awarded lot '{lot.name}' to {ranking[0]['bidder']} (record {record.id})"
-                 + (f": {note}" if note else ""),
-                 after={"evaluation_record": record.id, "sha256": record.sha256, "offer_id": record.awarded_offer_id})
+    summary = f"awarded lot '{lot.name}' to {plan.chosen['bidder']} (record {record.id})"
+    if not plan.is_lowest:
+        summary += f", not the lowest total owning cost ({decision['reason_kind']}: {decision['reason']})"
+    if decision["warnings_acknowledged"]:
+        summary += f"; {len(plan.warnings)} warning(s) acknowledged"
+    if data.note:
+        summary += f": {data.note}"
+    audit.record(session, "award", "lot", lot.id, summary[:300],
+                 after={"evaluation_record": record.id, "sha256": record.sha256, "offer_id": record.awarded_offer_id,
+                        "is_lowest_toc": plan.is_lowest, "reason_kind": decision["reason_kind"],
+                        "reason": decision["reason"], "margin_per_unit": decision["margin_per_unit"],
+                        "warnings_acknowledged": [w["code"] for w in plan.warnings] if plan.warnings else [],
+                        "cost_basis_revision": decision["cost_basis_revision"]})
     tender = lot.tender
     if all(active_record(session, other.id) is not None for other in tender.lots):
         tender.status = "awarded"
@@ -151,8 +277,11 @@ def reopen_lot(session: Session, lot_id: int, reason: str) -> EvaluationRecord:
     record.reopened_at = utcnow()
     record.reopened_by = audit.get_actor(session).username
     record.reopen_reason = reason[:2000]
+    # The lot follows its tender's revision again: a new award will be priced on it.
+    lot.cost_basis_revision = None
     audit.record(session, "reopen", "lot", lot.id, f"reopened lot '{lot.name}': {reason}"[:300],
-                 before={"evaluation_record": record.id})
+                 before={"evaluation_record": record.id},
+                 after={"cost_basis_revision": lot.tender.cost_basis_revision.revision})
     if lot.tender.status == "awarded":
         lot.tender.status = "evaluation"
     commit(session, "lot")
@@ -172,7 +301,8 @@ def list_records(session: Session, lot_id: int) -> list[EvaluationRecord]:
 
 def verify_record(record: EvaluationRecord) -> dict[str, Any]:
     """Recompute the hash and the ranking from the frozen inputs and compare."""
-    hash_ok = canonical_hash(record.inputs) == record.sha256
+    recomputed = canonical_hash(sealed_material(record.inputs, record.decision))
+    hash_ok = recomputed == record.sha256
     again = rank_frozen(record.inputs)
     order_ok = [r["offer_id"] for r in again] == [r["offer_id"] for r in record.ranking]
     values_ok = order_ok and all(
@@ -185,7 +315,7 @@ def verify_record(record: EvaluationRecord) -> dict[str, Any]:
         "ranking_matches": values_ok,
         "verified": hash_ok and values_ok,
         "sha256": record.sha256,
-        "recomputed_sha256": canonical_hash(record.inputs),
+        "recomputed_sha256": recomputed,
     }
 
 

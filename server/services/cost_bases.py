@@ -4,10 +4,11 @@ from __future__ import annotations
 
 from typing import Any
 
-from pydantic import TypeAdapter
+from pydantic import TypeAdapter, ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session, selectinload
 
+from domain.basis_checks import fixed_charge_rate_warnings, present_worth_warnings
 from domain.errors import InvalidInput
 from domain.rates import (
     CapitalisationRates,
@@ -23,6 +24,39 @@ from server.storage import audit
 from server.storage.models import CostBasis, CostBasisRevision, utcnow
 
 _INPUTS = TypeAdapter(schemas.MethodInputs)
+
+# Label, unit and hint of every method input; "{cur}" becomes the basis's currency. The
+# pages' boxes and the warnings of the API both name the inputs with these words.
+INPUT_WORDING: dict[str, tuple[str, str, str]] = {
+    "no_load_rate_per_kw": ("A, no-load loss rate", "{cur}/kW", ""),
+    "load_rate_per_kw": ("B, load loss rate", "{cur}/kW", ""),
+    "aux_rate_per_kw": ("C, auxiliary loss rate", "{cur}/kW", ""),
+    "energy_price_per_kwh": ("Energy price", "{cur}/kWh", "In year 1."),
+    "energy_escalation_pct": ("Energy price escalation e", "% a year", ""),
+    "capacity_cost_per_kw_year": ("Capacity cost", "{cur}/kW a year", ""),
+    "discount_rate_pct": ("Discount rate", "% a year", ""),
+    "years": ("Evaluation period n", "years", ""),
+    "peak_load_pu": ("Peak load", "per unit", "Of the rating, in year 1."),
+    "load_growth_pct": ("Peak load growth g", "% a year", ""),
+    "loss_factor": ("Loss factor", "0 to 1", ""),
+    "responsibility_factor": ("Responsibility factor", "0 to 1", "Share of the peak that falls at the system peak."),
+    "cooling_hours_per_year": ("Cooling in service", "hours a year", ""),
+    "system_capacity_cost_per_kw_year": ("System capacity cost", "{cur}/kW a year", ""),
+    "energy_cost_per_kwh": ("Energy cost", "{cur}/kWh", ""),
+    "fixed_charge_rate_pct": ("Fixed charge rate", "% a year", ""),
+    "energy_price_path_per_kwh": (
+        "Energy price path", "{cur}/kWh", "Optional: one price for each year 1 to n, one per line or separated by "
+        "commas. It replaces the price and its escalation.",
+    ),
+    "carbon_price_per_t": ("Carbon price", "{cur}/t CO\u2082", "Added to every year's energy price."),
+    "emission_factor_t_per_mwh": ("Grid emission factor", "t CO\u2082/MWh", "Of the energy that covers the losses."),
+    "change_reason": ("Reason for this revision", "", ""),
+}
+
+
+def input_label(name: str) -> str:
+    """The words for an input (named as the schemas name it), as the pages show it."""
+    return INPUT_WORDING[name][0] if name in INPUT_WORDING else name.replace("_", " ").capitalize()
 
 
 def present_worth_arguments(inputs: schemas.PresentWorthInputs) -> dict:
@@ -81,7 +115,42 @@ def parse_inputs(data: dict[str, Any]):
     return _INPUTS.validate_python(data)
 
 
-def _new_revision(session: Session, cost_basis: CostBasis, inputs, number: int) -> CostBasisRevision:
+def basis_warnings(inputs, currency: str = "") -> list[dict[str, str]]:
+    """What in a method's validated inputs is allowed but unusual, as {code, field, message}
+    with the field named as the schemas name it; warnings never stop a save."""
+
+    def label_of(domain_field: str) -> str:
+        return input_label(_api_field(domain_field))
+
+    if isinstance(inputs, schemas.PresentWorthInputs):
+        args = present_worth_arguments(inputs)
+        found = present_worth_warnings(
+            energy_price_per_kwh=args["energy_price_per_kwh"], energy_escalation=args["energy_escalation"],
+            discount_rate=args["discount_rate"], years=args["years"], peak_load_pu=args["peak_load_pu"],
+            load_growth=args["load_growth"], energy_price_path_per_kwh=args["energy_price_path_per_kwh"],
+            currency=currency, label_of=label_of,
+        )
+    elif isinstance(inputs, schemas.FixedChargeRateInputs):
+        found = fixed_charge_rate_warnings(energy_cost_per_kwh=inputs.energy_cost_per_kwh,
+                                           peak_load_pu=inputs.peak_load_pu, currency=currency, label_of=label_of)
+    else:
+        found = []  # published rates: nothing derived, nothing to question here
+    return [{"code": w.code, "field": _api_field(w.field), "message": w.message} for w in found]
+
+
+def stored_warnings(rev: CostBasisRevision) -> list[dict[str, str]]:
+    """The warnings of a stored revision's inputs."""
+    try:
+        inputs = parse_inputs({**rev.inputs, "method": rev.method})
+    except ValidationError:
+        # Inputs saved under older, looser rules: the revision stands as stored, and there is
+        # nothing sound to check them with.
+        return []
+    return basis_warnings(inputs, rev.cost_basis.currency)
+
+
+def _new_revision(session: Session, cost_basis: CostBasis, inputs, number: int,
+                  change_reason: str | None = None) -> CostBasisRevision:
     rates = rates_for(inputs)
     stored = inputs.model_dump(exclude={"method"})
     revision = CostBasisRevision(
@@ -92,6 +161,7 @@ def _new_revision(session: Session, cost_basis: CostBasis, inputs, number: int) 
         load_rate_per_kw=rates.load_rate_per_kw,
         aux_rate_per_kw=rates.aux_rate_per_kw,
         created_by=audit.get_actor(session).username,
+        change_reason=change_reason,
     )
     cost_basis.revisions.append(revision)
     return revision
@@ -103,6 +173,8 @@ def _name_taken(session: Session, name: str, except_id: int | None = None) -> bo
 
 
 def create_cost_basis(session: Session, data) -> CostBasis:
+    """A new basis and its first revision; a first revision has no reason for change (it
+    changes nothing), so its ``change_reason`` stays empty."""
     if _name_taken(session, data.name):
         raise InvalidField("name", f"a cost basis called '{data.name}' already exists.")
     inputs = parse_inputs(data.model_dump(exclude={"name", "currency"}))
@@ -135,7 +207,8 @@ def get_revision(session: Session, cost_basis_id: int, revision: int | None) -> 
 
 
 def revise_cost_basis(session: Session, cost_basis_id: int, patch: schemas.CostBasisPatch) -> CostBasis:
-    """Apply a change; any change to the method or its inputs makes a new revision."""
+    """Apply a change; any change to the method or its inputs makes a new revision, which
+    needs a reason for the change (``change_reason``, not blank)."""
     cost_basis = get_cost_basis(session, cost_basis_id)
     check_version(cost_basis, patch.version, "cost basis", current=cost_basis_out(cost_basis).model_dump(mode="json"))
     latest = cost_basis.latest
@@ -150,28 +223,35 @@ def revise_cost_basis(session: Session, cost_basis_id: int, patch: schemas.CostB
     merged = {**(latest.inputs if method == latest.method else {}), **sent, "method": method}
     inputs = parse_inputs(merged)
     if inputs.method != latest.method or inputs.model_dump(exclude={"method"}) != latest.inputs:
-        _new_revision(session, cost_basis, inputs, latest.revision + 1)
+        if not patch.change_reason:
+            raise InvalidField("change_reason", "say why the inputs change: the reason is kept with the new "
+                                                "revision and in the audit trail.")
+        _new_revision(session, cost_basis, inputs, latest.revision + 1, patch.change_reason)
     cost_basis.updated_at = utcnow()  # a new revision alone still bumps the basis's version
     commit(session, "cost basis", unique_field="name")
     session.refresh(cost_basis)
     return cost_basis
 
 
-def revision_out(rev: CostBasisRevision) -> schemas.CostBasisRevisionOut:
+def revision_out(rev: CostBasisRevision, warnings: list[dict[str, str]] | None = None) -> schemas.CostBasisRevisionOut:
+    """A revision as the API gives it; ``warnings`` when already worked out for it."""
     return schemas.CostBasisRevisionOut(
         revision=rev.revision,
         method=rev.method,
         inputs=rev.inputs,
         created_at=rev.created_at,
         created_by=rev.created_by,
+        change_reason=rev.change_reason,
         no_load_rate_per_kw=rev.no_load_rate_per_kw,
         load_rate_per_kw=rev.load_rate_per_kw,
         aux_rate_per_kw=rev.aux_rate_per_kw,
+        warnings=stored_warnings(rev) if warnings is None else warnings,
     )
 
 
 def cost_basis_out(cost_basis: CostBasis, detail: bool = False) -> schemas.CostBasisOut:
     latest = cost_basis.latest
+    warnings = stored_warnings(latest)
     fields = dict(
         id=cost_basis.id,
         name=cost_basis.name,
@@ -185,7 +265,9 @@ def cost_basis_out(cost_basis: CostBasis, detail: bool = False) -> schemas.CostB
         no_load_rate_per_kw=latest.no_load_rate_per_kw,
         load_rate_per_kw=latest.load_rate_per_kw,
         aux_rate_per_kw=latest.aux_rate_per_kw,
+        warnings=warnings,
     )
     if detail:
-        return schemas.CostBasisDetailOut(**fields, revisions=[revision_out(r) for r in cost_basis.revisions])
+        revisions = [revision_out(r, warnings if r is latest else None) for r in cost_basis.revisions]
+        return schemas.CostBasisDetailOut(**fields, revisions=revisions)
     return schemas.CostBasisOut(**fields)

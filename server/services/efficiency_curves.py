@@ -9,7 +9,7 @@ from sqlalchemy.orm import Session
 from domain.efficiency import efficiency, loading_of_maximum_efficiency
 from domain.limits import interpolate_limit, tables_for
 from server import schemas
-from server.services.compliance import all_tables
+from server.services.compliance import all_tables, unit_facts
 from server.services.tenders import get_lot
 from server.storage.models import Offer
 
@@ -35,7 +35,7 @@ def lot_efficiency_curves(session: Session, lot_id: int) -> schemas.EfficiencyCu
     points = []
     tables = all_tables(session)
     for key in lot.limit_tables or []:
-        for table in tables_for(key, lot.phases, lot.insulation, lot.rating_kva, lot.lv_kv, lot.hv_kv, tables):
+        for table in tables_for(key, unit_facts(lot), tables):
             if table.kind == "min_efficiency":
                 points.append({"table": table.name, "kind": "min_efficiency", "loading_pu": table.per_unit_load,
                                "efficiency_pct": interpolate_limit(table.ratings_kva, table.values, lot.rating_kva)})

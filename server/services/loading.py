@@ -15,7 +15,7 @@ def revision_rates(revision: CostBasisRevision) -> CapitalisationRates:
 def lot_rates(lot: Lot, revision: CostBasisRevision | None = None) -> tuple[CapitalisationRates, schemas.LoadingOut]:
     """A, B, C for ``lot`` under ``revision`` (default: its tender's), and the loading used."""
     inputs, loading, recomputed = lot_inputs(lot, revision)
-    revision = revision or lot.tender.cost_basis_revision
+    revision = revision or lot.pricing_revision
     return (rates_for(inputs) if recomputed else revision_rates(revision)), loading
 
 
@@ -28,7 +28,7 @@ def lot_inputs(lot: Lot, revision: CostBasisRevision | None = None):
     and energy costs, discount rate and years stay the basis's. A basis with direct rates
     has no loading to replace, so the lot's loading is not used there (and the note says so).
     """
-    revision = revision or lot.tender.cost_basis_revision
+    revision = revision or lot.pricing_revision
     inputs = parse_inputs({**revision.inputs, "method": revision.method})
     own = lot.load_shape_id is not None or lot.peak_load_pu is not None or lot.load_growth_pct is not None
     basis_loading = schemas.LoadingOut(

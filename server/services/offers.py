@@ -9,6 +9,7 @@ from server import schemas
 from server.errors import InvalidField
 from server.services.common import apply_patch, check_version, commit, get_or_404
 from server.services.locks import ensure_open
+from server.services.ranking import lot_ranking
 from server.services.tenders import get_lot
 from server.settings import get_settings
 from server.storage.models import Offer
@@ -46,18 +47,34 @@ def get_offer(session: Session, offer_id: int) -> Offer:
     return get_or_404(session, Offer, offer_id, "Offer")
 
 
-def offer_out(offer: Offer) -> schemas.OfferOut:
-    return schemas.OfferOut.model_validate(offer)
+def offers_out(session: Session, offers: list[Offer]) -> list[schemas.OfferOut]:
+    """Offers of one lot as the API gives them, each with the warnings the checks raise on it
+    (the same checks as the ranking: plausibility, price against the lot's median, coverage)."""
+    if not offers:
+        return []
+    # The ranking of every offer carries each one's warnings, computed once per data generation.
+    full = lot_ranking(session, offers[0].lot_id, include_non_compliant=True)
+    warnings = {row.offer_id: row.warnings for row in full.rows}
+    return [
+        schemas.OfferOut.model_validate(offer).model_copy(update={"warnings": warnings.get(offer.id, [])})
+        for offer in offers
+    ]
+
+
+def offer_out(session: Session, offer: Offer) -> schemas.OfferOut:
+    return offers_out(session, [offer])[0]
 
 
 def patch_offer(session: Session, offer_id: int, patch: schemas.OfferPatch) -> Offer:
     offer = get_offer(session, offer_id)
     ensure_open(session, offer.lot)
-    check_version(offer, patch.version, "offer", current=offer_out(offer).model_dump(mode="json"))
+    check_version(offer, patch.version, "offer",
+                  current=schemas.OfferOut.model_validate(offer).model_dump(mode="json", exclude={"warnings"}))
     if "currency" in patch.model_fields_set:
         _check_currency(offer.lot.tender, patch.currency)
     apply_patch(offer, patch, _REQUIRED)
-    commit(session, "offer", current=lambda: offer_out(get_offer(session, offer_id)).model_dump(mode="json"))
+    commit(session, "offer", current=lambda: schemas.OfferOut.model_validate(get_offer(session, offer_id)).model_dump(
+        mode="json", exclude={"warnings"}))
     return offer
 
 

@@ -75,7 +75,7 @@ class RobustnessPage:
 
 def _facts(lot) -> LotFacts:
     tender = lot.tender
-    revision = tender.cost_basis_revision
+    revision = lot.pricing_revision
     return LotFacts(lot.id, lot.name, tender.id, tender.reference, tender.title, tender.currency,
                     revision.cost_basis.id, revision.cost_basis.name, revision.revision, revision.method)
 

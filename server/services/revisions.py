@@ -29,7 +29,8 @@ def diff_revisions(session: Session, cost_basis_id: int, revision: int, against:
     for field in RATE_FIELDS:
         if getattr(old, field) != getattr(new, field):
             changes.append(schemas.FieldChangeOut(field=field, before=getattr(old, field), after=getattr(new, field)))
-    return schemas.RevisionDiffOut(cost_basis_id=cost_basis_id, revision=revision, against=against, changes=changes)
+    return schemas.RevisionDiffOut(cost_basis_id=cost_basis_id, revision=revision, against=against, changes=changes,
+                                   change_reason=new.change_reason)
 
 
 def preview_revision(session: Session, cost_basis_id: int, revision: int) -> schemas.RevisionPreviewOut:

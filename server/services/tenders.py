@@ -79,7 +79,9 @@ def patch_tender(session: Session, tender_id: int, patch: schemas.TenderPatch) -
     check_version(tender, patch.version, "tender", current=tender_out(session, tender).model_dump(mode="json"))
     if patch.status == "awarded" and tender.status != "awarded":
         raise InvalidField("status", "a tender becomes awarded when an approver awards each of its lots.")
-    if {"currency", "cost_basis_id", "cost_basis_revision", "exchange_rates"} & patch.model_fields_set:
+    # Money terms reach every lot's frozen prices: refused while any lot stands awarded. A new cost
+    # basis revision reaches the open lots only; an awarded lot keeps the revision of its award.
+    if {"currency", "exchange_rates"} & patch.model_fields_set:
         ensure_tender_open(session, tender)
     if patch.exchange_rates is not None:
         _check_rates_cover_offers(session, tender, patch.exchange_rates, patch.currency or tender.currency)
@@ -120,6 +122,8 @@ def offer_counts(session: Session, lot_ids: list[int]) -> dict[int, int]:
 def lot_out(lot: Lot, offer_count: int = 0) -> schemas.LotOut:
     out = schemas.LotOut.model_validate(lot)
     out.offer_count = offer_count
+    out.priced_on_revision = lot.pricing_revision.revision
+    out.kept_by_award = lot.cost_basis_revision_id is not None
     return out
 
 

@@ -61,7 +61,7 @@ def test_cost_basis_fixed_charge_rate(client):
 def test_cost_basis_patch_makes_revision_and_keeps_old(client):
     created = client.post("/api/v1/cost-bases", json=f.present_worth_basis()).json()
     r = client.patch(
-        f"/api/v1/cost-bases/{created['id']}", json={"version": 1, "energy_price_per_kwh": 0.12}
+        f"/api/v1/cost-bases/{created['id']}", json=f.revision(1, energy_price_per_kwh=0.12)
     )
     assert r.status_code == 200, r.text
     body = r.json()
@@ -75,7 +75,7 @@ def test_cost_basis_patch_makes_revision_and_keeps_old(client):
 
 def test_cost_basis_change_of_method_needs_its_inputs(client):
     created = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()
-    r = client.patch(f"/api/v1/cost-bases/{created['id']}", json={"version": 1, "method": "present_worth"})
+    r = client.patch(f"/api/v1/cost-bases/{created['id']}", json=f.revision(1, method="present_worth"))
     assert r.status_code == 422
     assert _field_named(r, "discount_rate_pct")
     assert client.get(f"/api/v1/cost-bases/{created['id']}").json()["revision"] == 1
@@ -83,9 +83,9 @@ def test_cost_basis_change_of_method_needs_its_inputs(client):
 
 def test_cost_basis_stale_patch_is_409_and_loses_nothing(client):
     created = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()
-    first = client.patch(f"/api/v1/cost-bases/{created['id']}", json={"version": 1, "load_rate_per_kw": 1700})
+    first = client.patch(f"/api/v1/cost-bases/{created['id']}", json=f.revision(1, load_rate_per_kw=1700))
     assert first.status_code == 200
-    stale = client.patch(f"/api/v1/cost-bases/{created['id']}", json={"version": 1, "load_rate_per_kw": 99})
+    stale = client.patch(f"/api/v1/cost-bases/{created['id']}", json=f.revision(1, load_rate_per_kw=99))
     assert stale.status_code == 409
     assert "changed by someone else" in stale.json()["detail"]
     assert stale.json()["current"]["load_rate_per_kw"] == 1700
@@ -155,7 +155,7 @@ def test_tender_patch_moves_cost_basis_and_checks_version(client):
 
 def test_tender_pins_a_revision(client):
     basis = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()
-    client.patch(f"/api/v1/cost-bases/{basis['id']}", json={"version": 1, "load_rate_per_kw": 2000})
+    client.patch(f"/api/v1/cost-bases/{basis['id']}", json=f.revision(1, load_rate_per_kw=2000))
     created = client.post("/api/v1/tenders", json=f.tender(basis["id"], cost_basis_revision=1)).json()
     ranking = client.get(f"/api/v1/lots/{created['lots'][0]['id']}/ranking").json()
     assert ranking["cost_basis_revision"] == 1 and ranking["load_rate_per_kw"] == 1500
@@ -304,7 +304,7 @@ def test_ranking_follows_the_cost_basis_revision(client):
     client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="A", unit_price=10000, no_load_loss_w=600))
     client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="B", unit_price=11000, no_load_loss_w=400))
     assert client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"][0]["bidder"] == "B"
-    client.patch(f"/api/v1/cost-bases/{basis_id}", json={"version": 1, "no_load_rate_per_kw": 1000})
+    client.patch(f"/api/v1/cost-bases/{basis_id}", json=f.revision(1, no_load_rate_per_kw=1000))
     # The tender stays on revision 1 until it is moved.
     assert client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"][0]["bidder"] == "B"
     client.patch(f"/api/v1/tenders/{tender_id}", json={"version": 1, "cost_basis_id": basis_id})

@@ -35,7 +35,7 @@ def test_changes_are_audited_with_before_and_after(client):
 
 def test_cost_basis_revision_and_user_changes_are_audited(client):
     basis = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()
-    client.patch(f"/api/v1/cost-bases/{basis['id']}", json={"version": 1, "load_rate_per_kw": 1234})
+    client.patch(f"/api/v1/cost-bases/{basis['id']}", json=f.revision(1, load_rate_per_kw=1234))
     revisions = _events(client, object_type="cost_basis_revision")
     assert len(revisions) == 2 and revisions[0]["after"]["load_rate_per_kw"] == 1234
     created = client.post("/api/v1/users", json={"username": "ivy", "password": "y" * 12, "roles": ["viewer"]})
@@ -91,7 +91,7 @@ def test_award_freezes_and_locks_the_lot(client):
         client.patch(f"/api/v1/offers/{offers[0]['id']}", json={"version": 1, "unit_price": 1}),
         client.delete(f"/api/v1/offers/{offers[0]['id']}"),
         client.patch(f"/api/v1/lots/{lot_id}", json={"version": 1, "quantity": 99}),
-        client.patch(f"/api/v1/tenders/{tender_id}", json={"version": 2, "cost_basis_revision": 1}),
+        client.patch(f"/api/v1/tenders/{tender_id}", json={"version": 2, "exchange_rates": {"USD": 0.9}}),
         client.delete(f"/api/v1/tenders/{tender_id}"),
         client.post(f"/api/v1/lots/{lot_id}/award", json={}),
     ]

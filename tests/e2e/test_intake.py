@@ -139,21 +139,31 @@ def test_limit_tables_are_listed_with_source_and_status(client):
     keys = {t["key"] for t in tables}
     assert {"doe-2016", "doe-2029", "eu-tier-1", "eu-tier-2"} <= keys
     assert all(t["source"] and t["status"] == "from memory" for t in tables)
-    r = client.post("/api/v1/limit-tables/eu-tier-2/review", json={"status": "verified", "note": "checked the OJ text"})
+    undocumented = client.post("/api/v1/limit-tables/eu-tier-2/review",
+                               json={"status": "verified", "note": "checked the OJ text"})
+    assert undocumented.status_code == 422 and undocumented.json()["detail"][0]["loc"][-1] == "document"
+    r = client.post("/api/v1/limit-tables/eu-tier-2/review", json={
+        "status": "verified", "note": "checked the OJ text", "document": "OJ L 152, 22.5.2014, Annex I"})
     assert r.status_code == 200 and r.json()["status"] == "verified"
+    family = {t["table_id"]: t["status"] for t in client.get("/api/v1/limit-tables").json() if t["key"] == "eu-tier-2"}
+    assert set(family.values()) == {"verified"} and len(family) == 4
 
 
 def test_doe_compliance_with_interpolation_through_the_api(client):
     # 10 CFR 431.196 three-phase liquid (2016): 300 kVA 99.27 %, 500 kVA 99.35 %; 400 kVA interpolates to 99.31 %.
     tender = _tender(client, lots=[f.lot(name="US lot", rating_kva=400, limit_tables=["doe-2016"])])
     lot_id = tender["lots"][0]["id"]
-    # Efficiency at 50 %: 200 kW / (200 kW + P0 + 0.25 Pk).
+    # Efficiency at 50 %: 200 kW / (200 kW + P0 + 0.25 Pk), the load loss stated at 55 C (Subpart K
+    # Appendix A, from memory) so that no temperature correction enters.
+    tender["lots"][0]["reference_temp_c"] = 55.0
+    client.patch(f"/api/v1/lots/{lot_id}", json={"version": tender["lots"][0]["version"], "reference_temp_c": 55.0})
     passing = client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Pass", no_load_loss_w=350, load_loss_w=4000)).json()
     failing = client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Fail", no_load_loss_w=500, load_loss_w=4000)).json()
     result = {r["offer_id"]: r for r in client.get(f"/api/v1/lots/{lot_id}/compliance").json()}
     (pass_finding,) = result[passing["id"]]["findings"]
     assert pass_finding["limit"] == pytest.approx(99.31)
     assert pass_finding["value"] == pytest.approx(100 * 200 / (200 + 0.35 + 1.0), abs=1e-4)  # 99.330 %
+    assert pass_finding["status"] == "from memory" and pass_finding["unverified"]
     assert pass_finding["passed"] and result[passing["id"]]["compliant"]
     assert pass_finding["unit"] == "%" and "10 CFR 431.196" in pass_finding["source"]
     assert not result[failing["id"]]["compliant"]  # 200 / 201.5 = 99.256 % < 99.31 %

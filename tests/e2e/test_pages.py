@@ -507,7 +507,8 @@ def test_saving_the_editor_makes_a_new_revision_and_a_stale_save_does_not(page_c
     csrf = log_in(page_client)
     basis_id, _, _ = setup_lot(page_client)
     form = {"csrf_token": csrf, "version": "1", "name": "Test basis", "currency": "EUR", "method": "direct",
-            "no_load_rate_per_kw": "6500", "load_rate_per_kw": "1500", "aux_rate_per_kw": "800"}
+            "no_load_rate_per_kw": "6500", "load_rate_per_kw": "1500", "aux_rate_per_kw": "800",
+            "change_reason": "New published A"}
     saved = page_client.post(f"/cost-bases/{basis_id}", data=form, headers=HX)
     assert saved.status_code == 200
     assert "Saved. The current revision is 2." in saved.text

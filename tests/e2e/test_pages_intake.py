@@ -241,7 +241,7 @@ def test_the_compliance_details_list_rule_limit_value_source_and_warnings(page_c
     assert finding["rule"].endswith("no-load loss") and finding["passed"] is False
     row = _text(re.search(r'<tr class="finding finding--fail">(.*?)</tr>', details, re.S).group(1))
     assert row.startswith(finding["rule"])
-    assert f'{finding["limit"]:,.0f} 600 W {finding["source"]} Fail' in row
+    assert f'{finding["limit"]:,.0f} 600 W {finding["source"]} Rule from memory, unverified Fail' in row
     assert "548/2014" in finding["source"]
     assert "Not compliant: breaks 1 rule" in _text(details)
     assert "looks like kW typed as W" in words and "usual for 400 kVA" in words
@@ -277,7 +277,7 @@ def test_the_limit_tables_page_lists_the_built_in_tables_from_memory(page_client
     assert "Regulatory tables change: check the edition in force where you buy." in words
     assert "Values marked from memory are candidates awaiting verification." in words
     for key in ("doe-2016", "doe-2029", "eu-tier-1", "eu-tier-2"):
-        assert f'href="/limit-tables/{key}"' in page.text, key
+        assert f'href="/limit-tables/{key}#{key}-' in page.text, key
     assert words.count("From memory, unverified") >= 4 and "Built-in" in words
     assert 'aria-current="page">Limit tables<' in page.text
     assert "New limit table" not in words and "needs the planner role" in words
@@ -343,19 +343,40 @@ def test_reviewing_a_built_in_table_marks_it_verified(page_client):
     csrf = log_in(page_client, "planner")
     detail = page_client.get("/limit-tables/eu-tier-2").text
     assert "Review this table" in detail and "Edit this table" not in detail
-    missing = page_client.post("/limit-tables/eu-tier-2/review", data={"csrf_token": csrf, "status": "verified", "note": ""})
-    assert missing.status_code == 422 and error_beside(missing.text, "review-note") == "Fill this in."
-    done = page_client.post("/limit-tables/eu-tier-2/review", follow_redirects=False,
-                            data={"csrf_token": csrf, "status": "verified", "note": "Compared with the OJ text, Annex I"})
+    table = "eu-tier-2-liquid"
+    missing = page_client.post("/limit-tables/eu-tier-2/review",
+                               data={"csrf_token": csrf, "table_id": table, "status": "verified", "note": ""})
+    assert missing.status_code == 422 and error_beside(missing.text, f"review-{table}-note") == "Fill this in."
+    assert error_beside(missing.text, f"review-{table}-document").startswith("Name the document you checked")
+    done = page_client.post("/limit-tables/eu-tier-2/review", follow_redirects=False, data={
+        "csrf_token": csrf, "table_id": table, "status": "verified", "note": "Compared with the OJ text, Annex I",
+        "document": "Regulation (EU) 548/2014 as amended, OJ text, Annex I, page 8"})
     assert done.status_code == 303
     page = _text(page_client.get(done.headers["location"]).text)
-    assert "Review recorded: the table is now verified." in page
+    assert "Review recorded." in page
     assert "Marked verified by planner" in page and "“Compared with the OJ text, Annex I”" in page
-    statuses = {t["status"] for t in page_client.get("/api/v1/limit-tables", headers=API).json() if t["key"] == "eu-tier-2"}
-    assert statuses == {"verified"}
+    assert "against Regulation (EU) 548/2014 as amended, OJ text, Annex I, page 8" in page
+    statuses = {t["table_id"]: t["status"] for t in page_client.get("/api/v1/limit-tables", headers=API).json()
+                if t["key"] == "eu-tier-2"}
+    assert statuses[table] == "verified" and statuses["eu-tier-2-dry"] == "from memory"
     listed = page_client.get("/limit-tables").text
-    row = re.search(r'href="/limit-tables/eu-tier-2".*?</tr>', listed, re.S).group(0)
+    row = re.search(rf'href="/limit-tables/eu-tier-2#{table}".*?</tr>', listed, re.S).group(0)
     assert "Verified" in row and "From memory" not in row
+    audit = page_client.get("/api/v1/audit", params={"object_type": "rule"}, headers=API).json()
+    assert audit[0]["after"]["rule"] == table and audit[0]["after"]["document"].startswith("Regulation (EU)")
+
+
+def test_a_tolerance_rule_is_reviewed_on_the_rules_page(page_client):
+    csrf = log_in(page_client, "planner")
+    page = _text(page_client.get("/rules").text)
+    assert "Tolerance on short-circuit impedance, principal tap (IEC)" in page and "IEC 60076-1" in page
+    done = page_client.post("/rules/iec-60076-1-impedance-tolerance/review", follow_redirects=False, data={
+        "csrf_token": csrf, "status": "verified", "note": "Table 1 line 3", "document": "IEC 60076-1:2011, Table 1, p. 43"})
+    assert done.status_code == 303
+    rules = {r["id"]: r for r in page_client.get("/api/v1/rules", headers=API).json()}
+    reviewed = rules["iec-60076-1-impedance-tolerance"]
+    assert reviewed["status"] == "verified" and reviewed["shipped_status"] == "from memory"
+    assert reviewed["reviews"][0]["reviewed_by"] == "planner" and reviewed["reviews"][0]["document"].startswith("IEC")
 
 
 def test_table_choices_group_the_tables_under_one_key():

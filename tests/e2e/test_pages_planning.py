@@ -312,7 +312,7 @@ def _sensitive_and_stable(client) -> tuple[int, dict, int, int]:
     api_offer(client, sensitive, bidder="Lossy", unit_price=11000, no_load_loss_w=600)
     api_offer(client, stable, bidder="Good", unit_price=10000, no_load_loss_w=300)
     api_offer(client, stable, bidder="Bad", unit_price=12000, no_load_loss_w=600)
-    revised = client.patch(f"/api/v1/cost-bases/{basis['id']}", json={"version": 1, "no_load_rate_per_kw": 1000},
+    revised = client.patch(f"/api/v1/cost-bases/{basis['id']}", json=factories.revision(1, no_load_rate_per_kw=1000),
                            headers=API)
     assert revised.status_code == 200, revised.text
     return basis["id"], tender, sensitive, stable
@@ -351,7 +351,7 @@ def test_comparing_two_revisions_shows_the_changed_field(page_client):
 
 def test_comparing_present_worth_revisions_lists_inputs_then_rates(page_client):
     basis = page_client.post("/api/v1/cost-bases", json=factories.present_worth_basis(), headers=API).json()
-    page_client.patch(f"/api/v1/cost-bases/{basis['id']}", json={"version": 1, "loss_factor": 0.4}, headers=API)
+    page_client.patch(f"/api/v1/cost-bases/{basis['id']}", json=factories.revision(1, loss_factor=0.4), headers=API)
     log_in(page_client, "viewer")
     partial = page_client.get(f"/cost-bases/{basis['id']}/revisions/compare", headers=HX).text
     fields = re.findall(r'<tr data-field="([^"]+)">', partial)
@@ -442,21 +442,28 @@ def test_moving_a_tender_to_another_revision_is_audited(page_client):
     assert page_client.get(f"/api/v1/tenders/{tender['id']}", headers=API).json()["cost_basis_revision"] == 2
 
 
-def test_an_awarded_lot_keeps_the_tender_on_its_revision(page_client):
-    basis_id, tender, sensitive, _ = _sensitive_and_stable(page_client)
+def test_an_awarded_lot_keeps_its_revision_when_the_tender_moves(page_client):
+    basis_id, tender, sensitive, stable = _sensitive_and_stable(page_client)
     csrf = log_in(page_client, "approver")
     awarded = page_client.post(f"/lots/{sensitive}/award", data={"csrf_token": csrf, "note": ""}, follow_redirects=False)
     assert awarded.status_code == 303
-    csrf = log_in(page_client, "buyer")
-    response = page_client.post(f"/tenders/{tender['id']}/revision",
-                                data={"csrf_token": csrf, "version": "1", "cost_basis_revision": "2"})
-    assert response.status_code == 409
-    assert "Lot 'Sensitive' was awarded" in html.unescape(response.text)
-    assert "<html" in response.text
-    assert page_client.get(f"/api/v1/tenders/{tender['id']}", headers=API).json()["cost_basis_revision"] == 1
     # The awarded lot is left out of the preview.
     preview = page_client.get(f"/cost-bases/{basis_id}/revisions/2/preview", headers=HX).text
     assert f'data-lot-id="{sensitive}"' not in preview
+    csrf = log_in(page_client, "buyer")
+    before = _text(page_client.get(f"/tenders/{tender['id']}").text)
+    assert "Sensitive stands awarded: it keeps revision 1" in before
+    version = page_client.get(f"/api/v1/tenders/{tender['id']}", headers=API).json()["version"]
+    response = page_client.post(f"/tenders/{tender['id']}/revision", follow_redirects=False,
+                                data={"csrf_token": csrf, "version": str(version), "cost_basis_revision": "2"})
+    assert response.status_code == 303
+    lots = {lot["id"]: lot for lot in page_client.get(f"/api/v1/tenders/{tender['id']}", headers=API).json()["lots"]}
+    assert lots[sensitive]["priced_on_revision"] == 1 and lots[sensitive]["kept_by_award"]
+    assert lots[stable]["priced_on_revision"] == 2 and not lots[stable]["kept_by_award"]
+    assert page_client.get(f"/api/v1/lots/{sensitive}/ranking", headers=API).json()["cost_basis_revision"] == 1
+    assert page_client.get(f"/api/v1/lots/{stable}/ranking", headers=API).json()["cost_basis_revision"] == 2
+    after = _text(page_client.get(f"/tenders/{tender['id']}").text)
+    assert "Sensitive stands awarded: it keeps revision 1" in after
 
 
 # --- the new present-worth inputs --------------------------------------------------------------------
@@ -466,7 +473,7 @@ def test_the_price_path_and_carbon_inputs_round_trip(page_client):
     csrf = log_in(page_client, "planner")
     form = {k: str(v) for k, v in factories.present_worth_basis(years=4).items()} | {
         "csrf_token": csrf, "version": "1", "energy_price_path_per_kwh": "0.08\n0.085, 0.09\n0.095",
-        "carbon_price_per_t": "80", "emission_factor_t_per_mwh": "0.25",
+        "carbon_price_per_t": "80", "emission_factor_t_per_mwh": "0.25", "change_reason": "Price path and carbon",
     }
     preview = page_client.post("/cost-bases/preview", data=form, headers=HX)
     assert "Energy price path: 4 prices for an evaluation period of 4 years, one for each year." in _text(preview.text)
@@ -496,3 +503,45 @@ def test_the_fixed_charge_rate_method_takes_carbon_too(page_client):
     response = page_client.get("/cost-bases", params={"method": "fixed_charge_rate"}, headers=HX)
     assert 'name="carbon_price_per_t"' in response.text and 'name="emission_factor_t_per_mwh"' in response.text
     assert "Grid emission factor" in response.text
+
+
+# --- warnings beside the inputs and the reason for each revision ----------------------------------------
+
+def test_the_revision_list_and_the_comparison_show_why_each_revision_was_made(page_client):
+    basis_id, _, _, _ = _sensitive_and_stable(page_client)
+    log_in(page_client, "viewer")
+    page = page_client.get(f"/cost-bases/{basis_id}").text
+    reasons = [_text(cell).strip() for cell in re.findall(r'<td class="change-reason">(.*?)</td>', page, re.S)]
+    assert reasons == ["Test change of inputs", "first revision"]  # newest first, as the list runs
+    partial = page_client.get(f"/cost-bases/{basis_id}/revisions/compare", params={"revision": 2, "against": 1},
+                              headers=HX).text
+    assert "Why revision 2 Test change of inputs" in _text(partial)
+
+
+def test_the_editor_asks_for_a_reason_and_shows_warnings_after_saving(page_client):
+    basis = page_client.post("/api/v1/cost-bases", json=factories.present_worth_basis(), headers=API).json()
+    csrf = log_in(page_client, "planner")
+    form = {k: str(v) for k, v in factories.present_worth_basis().items()} | {
+        "csrf_token": csrf, "version": "1", "discount_rate_pct": "-2", "energy_escalation_pct": "0",
+        "load_growth_pct": "0",
+    }
+    # Beside the inputs, as typed: the live preview names the unusual input.
+    preview = page_client.post("/cost-bases/preview", data=form, headers=HX)
+    assert 'data-warning="negative_discount_rate"' in preview.text
+    assert "Discount rate is -2 % a year" in _text(preview.text)
+    refused = page_client.post(f"/cost-bases/{basis['id']}", data=form, headers=HX)
+    assert refused.status_code == 422
+    assert error_beside(refused.text, "basis-change_reason").startswith("Say why the inputs change")
+    assert page_client.get(f"/api/v1/cost-bases/{basis['id']}", headers=API).json()["revision"] == 1
+    saved = page_client.post(f"/cost-bases/{basis['id']}", data=form | {"change_reason": "Low-rate scenario"},
+                             headers=HX)
+    assert saved.status_code == 200, saved.text
+    notice = saved.text[saved.text.index('class="notice notice--warn saved-warnings"'):]
+    assert "Revision 2 was saved with 1 warning (allowed, but worth a second look)" in _text(notice)
+    assert 'data-warning="negative_discount_rate"' in notice
+    reasons = re.findall(r'<td class="change-reason">(.*?)</td>', saved.text, re.S)
+    assert _text(reasons[0]).strip() == "Low-rate scenario"
+    # The box is empty again for the next revision; the stored revision's warnings stay beside the inputs.
+    assert re.search(r'<textarea id="basis-change_reason"[^>]*></textarea>', saved.text)
+    page = page_client.get(f"/cost-bases/{basis['id']}").text
+    assert 'data-warning="negative_discount_rate"' in page[page.index('id="rates-preview"'):]

@@ -222,7 +222,7 @@ def test_revision_list_diff_and_preview_lists_exactly_the_changed_lots(client):
     # Stable lot: one offer is better on price and on losses.
     client.post(f"/api/v1/lots/{stable}/offers", json=f.offer(bidder="Good", unit_price=10000, no_load_loss_w=300))
     client.post(f"/api/v1/lots/{stable}/offers", json=f.offer(bidder="Bad", unit_price=12000, no_load_loss_w=600))
-    client.patch(f"/api/v1/cost-bases/{basis['id']}", json={"version": 1, "no_load_rate_per_kw": 1000})
+    client.patch(f"/api/v1/cost-bases/{basis['id']}", json=f.revision(1, no_load_rate_per_kw=1000))
 
     revisions = client.get(f"/api/v1/cost-bases/{basis['id']}/revisions").json()
     assert [r["revision"] for r in revisions] == [1, 2] and revisions[1]["created_by"] == "tester"
@@ -271,3 +271,75 @@ def test_price_path_length_must_match_years(client):
     r = client.post("/api/v1/cost-bases", json=f.present_worth_basis(years=3, energy_price_path_per_kwh=[0.1, 0.1]))
     assert r.status_code == 422
     assert "energy_price_path_per_kwh" in str(r.json()["detail"])
+
+
+# --- cost basis warnings and the reason for each revision ----------------------------------------
+
+def _warnings(body) -> dict[str, dict]:
+    return {w["field"]: w for w in body["warnings"]}
+
+
+def test_unusual_inputs_are_warned_about_and_still_saved(client):
+    # -2 % discount; 0.9 pu growing 2 % a year is above 1.0 pu from year 7 (0.9 x 1.02^6 = 1.0135).
+    r = client.post("/api/v1/cost-bases", json=f.present_worth_basis(discount_rate_pct=-2.0, peak_load_pu=0.9,
+                                                                     load_growth_pct=2.0, energy_escalation_pct=0.0))
+    assert r.status_code == 201, r.text
+    created = r.json()
+    found = _warnings(created)
+    assert set(found) == {"discount_rate_pct", "peak_load_pu"}
+    assert found["discount_rate_pct"]["code"] == "negative_discount_rate"
+    assert found["discount_rate_pct"]["message"].startswith("Discount rate is -2 % a year")
+    assert "first in year 7" in found["peak_load_pu"]["message"]
+    assert created["revisions"][0]["warnings"] == created["warnings"]
+    # A price path with one year out of band: a warning naming that year, and the revision is made.
+    path = [0.08] * 29 + [2.5]
+    change = f.revision(1, "Price forecast with a spike", discount_rate_pct=6.0, energy_price_path_per_kwh=path)
+    r = client.patch(f"/api/v1/cost-bases/{created['id']}", json=change)
+    assert r.status_code == 200, r.text
+    body = r.json()
+    assert body["revision"] == 2 and body["inputs"]["energy_price_path_per_kwh"] == path
+    assert set(_warnings(body)) == {"peak_load_pu", "energy_price_path_per_kwh"}
+    assert "the price of year 30, 2.5 EUR/kWh, is outside" in _warnings(body)["energy_price_path_per_kwh"]["message"]
+    listed = client.get(f"/api/v1/cost-bases/{created['id']}/revisions").json()
+    assert [set(_warnings(rev)) for rev in listed] == [{"discount_rate_pct", "peak_load_pu"},
+                                                       {"peak_load_pu", "energy_price_path_per_kwh"}]
+    assert client.get("/api/v1/cost-bases").json()[0]["warnings"] == body["warnings"]
+
+
+def test_fixed_charge_rate_levelised_peak_above_the_rating_is_warned_about(client):
+    body = {"name": "FCR", "currency": "EUR", "method": "fixed_charge_rate", "system_capacity_cost_per_kw_year": 90.0,
+            "energy_cost_per_kwh": 0.06, "fixed_charge_rate_pct": 10.0, "peak_load_pu": 1.0, "loss_factor": 0.3}
+    at_rating = client.post("/api/v1/cost-bases", json=body).json()
+    assert at_rating["warnings"] == []
+    above = client.post("/api/v1/cost-bases", json=body | {"name": "FCR 2", "peak_load_pu": 1.1}).json()
+    assert [w["code"] for w in above["warnings"]] == ["levelised_peak_above_rating"]
+
+
+@pytest.mark.parametrize("reason", [None, "", "   "])
+def test_a_new_revision_without_a_reason_is_422_naming_change_reason(client, reason):
+    basis = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()
+    change = {"version": 1, "load_rate_per_kw": 1700} | ({} if reason is None else {"change_reason": reason})
+    r = client.patch(f"/api/v1/cost-bases/{basis['id']}", json=change)
+    assert r.status_code == 422
+    assert [err["loc"][-1] for err in r.json()["detail"]] == ["change_reason"]
+    stored = client.get(f"/api/v1/cost-bases/{basis['id']}").json()
+    assert stored["revision"] == 1 and stored["version"] == 1
+    # A change that makes no revision (the name alone) needs no reason.
+    renamed = client.patch(f"/api/v1/cost-bases/{basis['id']}", json={"version": 1, "name": "Renamed"})
+    assert renamed.status_code == 200 and renamed.json()["revision"] == 1
+
+
+def test_the_reason_is_kept_in_the_api_the_diff_and_the_audit_trail(client):
+    basis = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()
+    assert basis["revisions"][0]["change_reason"] is None  # a first revision changes nothing
+    reason = "Utility published new A and B for 2027"
+    r = client.patch(f"/api/v1/cost-bases/{basis['id']}", json=f.revision(1, f"  {reason}  ", load_rate_per_kw=1700))
+    assert r.status_code == 200, r.text
+    assert [rev["change_reason"] for rev in r.json()["revisions"]] == [None, reason]
+    listed = client.get(f"/api/v1/cost-bases/{basis['id']}/revisions").json()
+    assert listed[1]["change_reason"] == reason
+    diff = client.get(f"/api/v1/cost-bases/{basis['id']}/revisions/2/diff", params={"against": 1}).json()
+    assert diff["change_reason"] == reason
+    events = client.get("/api/v1/audit", params={"object_type": "cost_basis_revision"}).json()
+    created = [e for e in events if e["action"] == "create" and e["after"]["revision"] == 2]
+    assert len(created) == 1 and created[0]["after"]["change_reason"] == reason
