@@ -12,11 +12,18 @@ may move before another offer wins:
 - ``tornado``: one input at a time moved to its low and high value;
 - ``monte_carlo``: every input drawn from a distribution, many times.
 
-Tie-break convention (all tools): among offers with exactly equal TOC the one
-with the lowest index in the ``OfferArrays`` wins. ``OfferArrays.from_offers``
-orders the offers by the secondary keys of ``domain.toc.rank_offers`` (unit
-price, bidder casefolded, offer_id, bidder, P0, Pk, Paux), so the lowest index
-is the offer that ``rank_offers`` would place first.
+Tie order (every tool): the leader is the offer that ``domain.toc.rank_offers``
+places first, i.e. the lowest TOC per unit, then the lowest unit price, then
+the bidder's name casefolded, then the lowest offer_id (then, for offers that
+share an id, the bidder as typed and P0, Pk, Paux). It is set up once:
+``OfferArrays.from_offers`` puts the offers in that order after TOC, and every
+winner is then the first lowest TOC in array order (``lowest_toc_index``), so
+an exact tie goes to the lower index. TOC is computed as
+``total_owning_cost`` computes it (``OfferArrays.toc``), so "exact" means the
+same bits as in the ranking. The Monte Carlo finds its winners with a faster
+matrix product whose rounding differs in the last place; a draw where two
+offers come that close is costed again as the ranking costs it (see
+``monte_carlo``), so a tie there is settled in the same order too.
 """
 
 from __future__ import annotations
@@ -45,6 +52,7 @@ from domain.toc import OfferLosses
 
 __all__ = [
     "OfferArrays",
+    "lowest_toc_index",
     "leader_index",
     "split_leader",
     "BreakEven",
@@ -57,12 +65,14 @@ __all__ = [
     "OPTIONAL_RATE_INPUT_NAMES",
     "present_worth_rates_fn",
     "present_worth_rates_vectorised",
+    "InputRange",
     "TornadoRow",
     "tornado",
     "PERCENTILES",
     "OfferOutcome",
     "MonteCarloResult",
     "SimulationCancelled",
+    "check_distributions",
     "monte_carlo",
 ]
 
@@ -107,6 +117,15 @@ WINNER_TASK_ELEMENTS = 1 << 20
 # many (numpy releases the GIL in matmul, argmin and partition). Each thread
 # holds its own percentile block, so this also bounds the memory.
 MAX_WORKERS = 8
+# The Monte Carlo's matrix product and total_owning_cost round differently, by a
+# few units in the last place (about 1e-15 of the TOC, all terms being >= 0).
+# Where the two lowest TOCs of a draw are closer than this share of the lowest,
+# the product cannot be trusted to order them as the ranking does, so the draw is
+# costed again as the ranking costs it. Far above the rounding, far below any
+# real gap between offers: such draws are rare unless offers tie exactly.
+CLOSE_CALL = 2.0**-40
+# Draws per span when settling close calls: two spans for the bench's 10,000 draws.
+SETTLE_SPAN = 1 << 13
 
 
 # --------------------------------------------------------------------------- offers
@@ -141,7 +160,9 @@ class OfferArrays:
     Notes
     -----
     The arrays are copied and made read-only on construction. Position in the
-    arrays is the tie-break order: the lowest index wins an exact tie.
+    arrays is the tie-break order: the lowest index wins an exact tie. Built
+    with ``from_offers`` that is the order of ``rank_offers``; built directly,
+    the caller's order stands (the arrays carry no bidder names to sort by).
     """
 
     offer_ids: np.ndarray
@@ -175,6 +196,13 @@ class OfferArrays:
         OfferArrays
             Sorted by unit price, bidder (casefolded), offer_id, bidder as
             typed, P0, Pk, Paux: the keys ``rank_offers`` uses after TOC.
+
+        Notes
+        -----
+        This sort is the one place the tie order is made: every tool then
+        takes the first lowest TOC in array order (``lowest_toc_index``), which
+        among offers of exactly equal TOC is the one ``rank_offers`` ranks
+        first. The order of ``offers`` does not matter.
         """
         ordered = sorted(
             offers,
@@ -231,8 +259,38 @@ def _need_offers(offers: OfferArrays, minimum: int, field: str = "offers") -> No
         raise InvalidInput(field, f"needs at least {minimum} offer(s), got {len(offers)}")
 
 
+def lowest_toc_index(toc: Any) -> Any:
+    """Position of the winning offer along the last axis of a TOC array, ties in array order.
+
+    Parameters
+    ----------
+    toc : array_like, shape (..., n_offers)
+        TOC per unit [currency] of each offer, in ``OfferArrays`` order, as
+        ``OfferArrays.toc`` computes it.
+
+    Returns
+    -------
+    int or numpy.ndarray of intp, shape (...)
+        Index of the lowest TOC; among exactly equal TOCs the lowest index.
+
+    Notes
+    -----
+    numpy's argmin returns the first minimum. With the offers in the order of
+    ``OfferArrays.from_offers`` (unit price, bidder casefolded, offer_id after
+    TOC) that is the offer ``domain.toc.rank_offers`` ranks first. Every
+    winner in this module is found here, so the rule lives in one place (the
+    Monte Carlo's faster product settles its close calls here too).
+
+    References
+    ----------
+    Lowest evaluated cost wins: IEEE C57.120 loss evaluation; tie order our own.
+    """
+    winners = np.argmin(np.asarray(toc), axis=-1)
+    return int(winners) if winners.ndim == 0 else winners
+
+
 def leader_index(offers: OfferArrays, rates: CapitalisationRates) -> int:
-    """Index of the offer with the lowest TOC at ``rates`` (lowest index on a tie).
+    """Index of the offer with the lowest TOC at ``rates``, ties broken as ``rank_offers`` does.
 
     Parameters
     ----------
@@ -248,8 +306,10 @@ def leader_index(offers: OfferArrays, rates: CapitalisationRates) -> int:
 
     Notes
     -----
-    argmin of TOC = price + (A P0 + B Pk + C Paux) / 1000; numpy's argmin
-    returns the first minimum, which is the tie-break of this module.
+    ``lowest_toc_index`` of TOC = price + (A P0 + B Pk + C Paux) / 1000: on
+    an exact tie the lowest index, which for offers from
+    ``OfferArrays.from_offers`` is the lowest unit price, then bidder
+    casefolded, then offer_id (the order of ``rank_offers``).
 
     References
     ----------
@@ -257,11 +317,11 @@ def leader_index(offers: OfferArrays, rates: CapitalisationRates) -> int:
     """
     _need_offers(offers, 1)
     toc = offers.toc(rates.no_load_rate_per_kw, rates.load_rate_per_kw, rates.aux_rate_per_kw)
-    return int(np.argmin(toc))
+    return lowest_toc_index(toc)
 
 
 def split_leader(offers: OfferArrays, rates: CapitalisationRates) -> tuple[OfferArrays, OfferArrays]:
-    """The deterministic leader at ``rates`` and the other offers, for ``break_even``."""
+    """The leader at ``rates`` (ties as ``leader_index``) and the other offers in order, for ``break_even``."""
     lead = leader_index(offers, rates)
     rest = np.delete(np.arange(len(offers)), lead)
     return offers.take([lead]), offers.take(rest)
@@ -356,7 +416,8 @@ def break_even(leader: OfferArrays, rivals: OfferArrays, rates: CapitalisationRa
     (M > 0) for B above B* when dPk > 0, below B* when dPk < 0. Holding B
     and C, A* = -(d_price + B dPk + C dPaux) / dP0 likewise. No root when
     the loss gap is zero or the root is negative (rates are >= 0). Exactly at
-    the tie the lower index in ``OfferArrays`` order wins.
+    the tie the lower index in ``OfferArrays`` order wins, as in
+    ``leader_index``; a rival tied with the leader now has margin_now 0.
 
     References
     ----------
@@ -502,8 +563,9 @@ def winner_grid(
     Notes
     -----
     TOC is evaluated by broadcasting cells x offers in chunks, in the same
-    operation order as ``domain.toc.total_owning_cost``; the winner is the
-    argmin, the lowest index on an exact tie.
+    operation order as ``domain.toc.total_owning_cost``; the winner is
+    ``lowest_toc_index``, the lowest index on an exact tie (the order of
+    ``rank_offers`` for offers from ``OfferArrays.from_offers``).
 
     References
     ----------
@@ -522,7 +584,7 @@ def winner_grid(
     for start in range(0, flat_a.size, step):
         stop = min(flat_a.size, start + step)
         toc = offers.toc(flat_a[start:stop], flat_b[start:stop], c)
-        winners[start:stop] = np.argmin(toc, axis=1)
+        winners[start:stop] = lowest_toc_index(toc)
     return winners.reshape(b_axis.size, a_axis.size)
 
 
@@ -875,6 +937,55 @@ def _checked_rates(
 
 
 @dataclass(frozen=True)
+class InputRange:
+    """The values one input may take, for clipping a tornado's low and high values.
+
+    Attributes
+    ----------
+    low, high : float
+        Smallest and largest allowed value [the input's own unit]; -inf and
+        inf for no bound.
+    low_open : bool
+        True when ``low`` itself is not allowed (a discount rate above -50 %).
+    whole : bool
+        True when only whole numbers are allowed (years).
+
+    Notes
+    -----
+    The limits are the caller's: the application passes those of its cost
+    basis form, so that a tornado never moves an input where the form would
+    refuse it.
+    """
+
+    low: float = -math.inf
+    high: float = math.inf
+    low_open: bool = False
+    whole: bool = False
+
+    def __post_init__(self) -> None:
+        low, high = float(self.low), float(self.high)
+        if math.isnan(low) or math.isnan(high) or not (low < high or (low == high and not self.low_open)):
+            raise InvalidInput("limits", f"need low < high (or equal and closed), got {low!r} and {high!r}")
+        object.__setattr__(self, "low", low)
+        object.__setattr__(self, "high", high)
+
+    def clip(self, value: float) -> float:
+        """The allowed value nearest ``value``: ``value`` itself when allowed.
+
+        Below an open low bound the result is the next float above it (for
+        whole numbers, the next whole number). A value that is inside the
+        bounds but not whole is returned as it is: clipping does not round.
+        """
+        if value <= self.low if self.low_open else value < self.low:
+            if self.whole:
+                return float(math.floor(self.low) + 1 if self.low_open else math.ceil(self.low))
+            return math.nextafter(self.low, math.inf) if self.low_open else self.low
+        if value > self.high:
+            return float(math.floor(self.high)) if self.whole else self.high
+        return value
+
+
+@dataclass(frozen=True)
 class TornadoRow:
     """One input moved to its low and its high value, the others at their base values.
 
@@ -882,7 +993,10 @@ class TornadoRow:
     ----------
     input_name : str
     base_value, low_value, high_value : float
-        In the input's own unit.
+        In the input's own unit; low and high as used, after clipping.
+    low_clipped, high_clipped : bool
+        Whether the low (high) value asked lay outside the input's allowed
+        range and was moved to its nearest allowed value.
     margin_base, margin_low, margin_high : float
         Margin of the base leader [currency]: the lowest TOC among the other
         offers minus the base leader's TOC, with the input at base, low and
@@ -890,7 +1004,7 @@ class TornadoRow:
     swing : float
         abs(margin_high - margin_low) [currency]; rows are sorted by it.
     leader_id_base, leader_id_low, leader_id_high : int
-        Winning offer at each setting.
+        Winning offer at each setting (ties as ``leader_index``).
     leader_changed_low, leader_changed_high : bool
         Whether the winner differs from the base leader.
     """
@@ -908,6 +1022,8 @@ class TornadoRow:
     leader_id_high: int
     leader_changed_low: bool
     leader_changed_high: bool
+    low_clipped: bool = False
+    high_clipped: bool = False
 
 
 def _tornado_point(
@@ -919,7 +1035,7 @@ def _tornado_point(
     a, b, c = (float(v) for v in _checked_rates("rates_fn", rates_fn(inputs), ()))
     toc = offers.toc(a, b, c)
     others = np.delete(toc, base_leader)
-    return float(others.min() - toc[base_leader]), int(np.argmin(toc))
+    return float(others.min() - toc[base_leader]), lowest_toc_index(toc)
 
 
 def _input_value(name: str, value: Any) -> float | int:
@@ -928,11 +1044,25 @@ def _input_value(name: str, value: Any) -> float | int:
     return finite_scalar(name, value)
 
 
+def _range_value(name: str, value: Any, limit: InputRange | None) -> tuple[float | int, bool]:
+    """A tornado's low or high value moved into ``limit``, and whether it had to move.
+
+    Clipped before the checks of ``_input_value``, so that 0 years becomes 1
+    rather than an error; a fraction of a year is refused, never rounded.
+    """
+    number = finite_scalar(name, value)
+    if name == "years" and not number.is_integer():
+        raise InvalidInput(name, f"must be a whole number, got {value!r}")
+    moved = number if limit is None else limit.clip(number)
+    return _input_value(name, moved), moved != number
+
+
 def tornado(
     base_inputs: Mapping[str, float],
     ranges: Mapping[str, tuple[float, float]],
     rates_fn: Callable[[Mapping[str, float]], Any],
     offers: OfferArrays,
+    limits: Mapping[str, InputRange] | None = None,
 ) -> list[TornadoRow]:
     """One-at-a-time sensitivity of the leader's margin to the inputs of the rates.
 
@@ -948,6 +1078,11 @@ def tornado(
         ``present_worth_rates_fn``.
     offers : OfferArrays
         At least two offers.
+    limits : mapping of str to InputRange, optional
+        Allowed values of the inputs [their own units]. A low or high value
+        outside its input's range is replaced by the nearest allowed value
+        (``InputRange.clip``) and the row says so; inputs not named are used
+        as given.
 
     Returns
     -------
@@ -960,7 +1095,9 @@ def tornado(
     to low, then high; the rates follow from ``rates_fn``, TOC from
     price + (A P0 + B Pk + C Paux) / 1000. The margin is that of the offer
     leading at the base values, so a negative margin tells how far behind it
-    has fallen; winners are argmin of TOC (lowest index on a tie).
+    has fallen. Leaders are found by ``lowest_toc_index``: on an exact tie the
+    offer ``rank_offers`` ranks first (for offers from
+    ``OfferArrays.from_offers``).
 
     References
     ----------
@@ -968,10 +1105,11 @@ def tornado(
     sensitivity), applied here to the TOC ranking.
     """
     _need_offers(offers, 2)
+    limits = limits or {}
     base = {name: _input_value(name, value) for name, value in base_inputs.items()}
     a, b, c = (float(v) for v in _checked_rates("rates_fn", rates_fn(base), ()))
     toc = offers.toc(a, b, c)
-    base_leader = int(np.argmin(toc))
+    base_leader = lowest_toc_index(toc)
     margin_base = float(np.delete(toc, base_leader).min() - toc[base_leader])
     base_id = int(offers.offer_ids[base_leader])
 
@@ -983,7 +1121,8 @@ def tornado(
             low_raw, high_raw = bounds
         except (TypeError, ValueError):
             raise InvalidInput(name, "range must be a (low, high) pair") from None
-        low, high = _input_value(name, low_raw), _input_value(name, high_raw)
+        low, low_clipped = _range_value(name, low_raw, limits.get(name))
+        high, high_clipped = _range_value(name, high_raw, limits.get(name))
         margin_low, lead_low = _tornado_point(rates_fn, {**base, name: low}, offers, base_leader)
         margin_high, lead_high = _tornado_point(rates_fn, {**base, name: high}, offers, base_leader)
         rows.append(
@@ -1001,6 +1140,8 @@ def tornado(
                 leader_id_high=int(offers.offer_ids[lead_high]),
                 leader_changed_low=lead_low != base_leader,
                 leader_changed_high=lead_high != base_leader,
+                low_clipped=low_clipped,
+                high_clipped=high_clipped,
             )
         )
     return sorted(rows, key=lambda row: -row.swing)
@@ -1137,6 +1278,41 @@ def _sample_input(
         # low and high are whole, so rounding keeps the draws inside them.
         values = np.rint(values)
     return values
+
+
+def check_distributions(base_inputs: Mapping[str, float], distributions: Mapping[str, Mapping[str, Any]]) -> None:
+    """Refuse, without drawing, the distributions ``monte_carlo`` would refuse.
+
+    Parameters
+    ----------
+    base_inputs, distributions
+        As for ``monte_carlo``.
+
+    Raises
+    ------
+    InvalidInput
+        For the first distribution (in sorted name order) that names no base
+        value, has an unknown kind, lacks or has extra parameters, or breaks
+        a rule of its kind (low < high, low <= mode <= high, sd > 0, whole
+        years, a normal cut too short). Whether the draws keep the rate
+        inputs in their valid ranges is checked by ``monte_carlo`` itself.
+
+    Notes
+    -----
+    The same checks as ``monte_carlo`` makes before drawing, so that a
+    caller can refuse a request at once and run it later (in the background).
+
+    References
+    ----------
+    Input checks of this module; no source.
+    """
+    base = {name: _input_value(name, value) for name, value in base_inputs.items()}
+    for name in distributions:
+        if name not in base:
+            raise InvalidInput(f"distributions[{name}]", "has no base value in base_inputs")
+    rng = np.random.default_rng(0)
+    for name in sorted(distributions):
+        _sample_input(rng, name, distributions[name], base[name], 0)
 
 
 def _select_order_statistics(block: np.ndarray, ks: Sequence[int]) -> dict[int, np.ndarray]:
@@ -1338,18 +1514,27 @@ def monte_carlo(
     gives exactly the truncated distribution; it is refused when [low, high]
     holds under 0.1 % of the normal.
 
-    Per draw the rates row r = [1, A/1000, B/1000, C/1000] and the offers'
-    matrix L = [price; P0; Pk; Paux] give TOC = r @ L, i.e.
+    Per draw the rates row r = [1, A, B, C] and the offers' matrix
+    L = [price; P0/1000; Pk/1000; Paux/1000] give TOC = r @ L, i.e.
     price + (A P0 + B Pk + C Paux) / 1000, computed chunk by chunk as one
-    matrix product. The winner is the argmin (lowest index on an exact tie
-    of the computed values). Win probability = wins / draws.
+    matrix product. The winner is the first lowest TOC in ``offers`` order.
+    The product rounds differently from ``domain.toc.total_owning_cost`` (a
+    few units in the last place), so where another offer's TOC is within
+    CLOSE_CALL (2^-40) of a draw's winner's, that draw is costed again with
+    ``OfferArrays.toc``, as the ranking costs it, and its winner is
+    ``lowest_toc_index`` of those values: an exact tie in the ranking's
+    arithmetic goes to the offer ``rank_offers`` ranks first (for offers
+    from ``OfferArrays.from_offers``), in every draw. The candidates are
+    screened by a bound over each winner's draws, so this costs a small
+    share of the argmin (``_settle_close_calls``). Win probability =
+    wins / draws; the base leader is found in the ranking's arithmetic too.
 
     Threads: the rates (unless ``rates_fn`` is given, which is called in
     order on the calling thread), the winners and the percentiles are each
     computed in chunks that threads take in turn; each chunk writes only its
     own rows, and the chunk boundaries do not depend on the thread count, so
-    neither does any value returned. The sums (win counts, regret, mean) are
-    taken afterwards on the calling thread.
+    neither does any value returned. The close calls are settled, and the
+    sums (win counts, regret, mean) taken, afterwards on the calling thread.
 
     Expected regret of offer j = mean over draws of TOC_j - min_k TOC_k,
     computed from the winners alone: with n_w draws won by w and s_w the sum
@@ -1414,7 +1599,7 @@ def monte_carlo(
         compute = rates_fn
     base_rates = _checked_rates("base_inputs", compute(base_rows), (1,))
     base_a, base_b, base_c = (float(rate[0]) for rate in base_rates)
-    base_leader = int(np.argmin(offers.toc(base_a, base_b, base_c)))
+    base_leader = lowest_toc_index(offers.toc(base_a, base_b, base_c))
 
     def report(fraction: float) -> None:
         if should_stop is not None and should_stop():
@@ -1422,9 +1607,10 @@ def monte_carlo(
         if progress is not None:
             progress(min(1.0, fraction))
 
-    # Rate rows [1, A/1000, B/1000, C/1000], stored as columns (4, draws):
-    # TOC = rows @ L in one product, and each row of L.T @ columns is one
-    # offer's TOC over the draws, for its percentiles.
+    # Rate rows [1, A, B, C], stored as columns (4, draws): TOC = rows @ L in
+    # one product, and each row of L.T @ columns is one offer's TOC over the
+    # draws, for its percentiles. The rates are kept as drawn (the losses
+    # carry the / 1000), so that a close call can be costed again exactly.
     rate_columns = np.empty((4, n_draws))
     rate_columns[0] = 1.0
     rate_rows = rate_columns.T
@@ -1435,9 +1621,9 @@ def monte_carlo(
         rate_columns[1, start:stop] = a
         rate_columns[2, start:stop] = b
         rate_columns[3, start:stop] = c
-        rate_columns[1:, start:stop] /= 1000.0
 
-    losses = np.vstack([offers.prices, offers.p0_w, offers.pk_w, offers.paux_w])  # (4, offers)
+    # (4, offers): price [currency], P0, Pk, Paux [kW]
+    losses = np.vstack([offers.prices, offers.p0_w / 1000.0, offers.pk_w / 1000.0, offers.paux_w / 1000.0])
     losses_by_offer = np.ascontiguousarray(losses.T)  # (offers, 4)
     winners = np.empty(n_draws, dtype=np.intp)
 
@@ -1476,6 +1662,20 @@ def monte_carlo(
             lambda: np.empty((min(chunk, n_draws), n_offers)),
             lambda done: report(0.05 + 0.25 * done / n_draws),
         )
+        if n_offers > 1:
+            # Offers alike in price and losses tie at any rates, whatever the rounding: the first
+            # of them takes the draw. Then the close calls, span by span (see _settle_close_calls).
+            twins = _first_twins(losses)
+            if twins is not None:
+                winners[:] = twins[winners]
+            winner_keys = winners.astype(np.uint16) if n_offers <= 1 << 16 else winners
+
+            def settle(start: int, stop: int, _: None) -> None:
+                _settle_close_calls(offers, losses, rate_columns[:, start:stop], winners[start:stop],
+                                    winner_keys[start:stop])
+
+            _run_spans(pool, n_workers, _spans(n_draws, SETTLE_SPAN), settle, lambda: None,
+                       lambda done: report(0.3))
 
         wins = np.bincount(winners, minlength=n_offers)
         regret = _regret_sums(winners, wins, rate_rows, losses) / n_draws
@@ -1507,6 +1707,95 @@ def monte_carlo(
         base_aux_rate_per_kw=base_c,
         offers=outcomes,
     )
+
+
+def _first_twins(losses: np.ndarray) -> np.ndarray | None:
+    """For each offer, the first offer alike in price and losses (itself if none), or None when
+    no two offers are alike. ``losses`` is (4, offers)."""
+    prices = np.sort(losses[0])
+    if not np.any(prices[1:] == prices[:-1]):
+        return None  # the usual case, found without sorting the losses
+    order = np.lexsort(losses)
+    ordered = losses[:, order]
+    alike = np.all(ordered[:, 1:] == ordered[:, :-1], axis=0)
+    if not alike.any():
+        return None
+    new_group = np.concatenate([[True], ~alike])
+    twins = np.empty(losses.shape[1], dtype=np.intp)
+    twins[order] = np.minimum.reduceat(order, np.flatnonzero(new_group))[np.cumsum(new_group) - 1]
+    return twins
+
+
+def _settle_close_calls(
+    offers: OfferArrays,
+    losses: np.ndarray,
+    rate_columns: np.ndarray,
+    winners: np.ndarray,
+    winner_keys: np.ndarray,
+) -> None:
+    """Correct, in place, the winners of a span of draws the matrix product may have got wrong.
+
+    ``losses`` is (4, offers) [price, P0, Pk, Paux in kW], ``rate_columns``
+    (4, draws) the span's rate rows [1, A, B, C], ``winners`` its winners
+    (already moved to the first of offers alike, ``_first_twins``) and
+    ``winner_keys`` the same as 16-bit keys where they fit. Only ``winners``
+    is written.
+
+    A draw is a close call when another offer's TOC is within CLOSE_CALL of
+    its winner's; it is costed again with ``OfferArrays.toc`` (the ranking's
+    arithmetic) and won by ``lowest_toc_index`` of that. Looking at every
+    offer of every draw again would cost as much as the argmin. Instead the
+    draws are put in order of winner, then of the rate that moves the
+    offers' TOCs most, and cut into blocks of one winner w and similar rates.
+    Over the box of a block's rate rows, TOC_j - TOC_w = r . (L_j - L_w) is
+    bounded below (each term at the end of its range that makes it least);
+    only the offers whose bound does not clear the tolerance are costed, in
+    that block. Every draw within CLOSE_CALL of its winner is costed again
+    wherever the spans and blocks start, and a draw costed again without need
+    keeps its winner (its gap is far above the rounding), so the result does
+    not depend on them. On the bench's tender (1,000 offers, six winners)
+    about 1 % of the argmin's products are made again.
+    """
+    n_offers = losses.shape[1]
+    block = 2048  # draws of one winner per box at most
+    low, high = rate_columns.min(axis=1), rate_columns.max(axis=1)
+    steer = 1 + int(np.argmax((high - low)[1:] * np.ptp(losses[1:], axis=1)))
+    # 16-bit keys: numpy's stable sort of them is a radix sort, linear in the draws.
+    rate_keys = ((rate_columns[steer] - low[steer]) * (65535.0 / ((high - low)[steer] or 1.0))).astype(np.uint16)
+    draws = np.lexsort((rate_keys, winner_keys))
+    rates, won = np.take(rate_columns, draws, axis=1), winners[draws]
+    # A block starts where the winner changes, and every ``block`` draws of one winner.
+    runs = np.append(np.flatnonzero(np.concatenate([[True], won[1:] != won[:-1]])), won.size)
+    starts = np.concatenate([np.arange(runs[k], runs[k + 1], block) for k in range(runs.size - 1)])
+    stops = np.append(starts[1:], won.size)
+    lows, highs = np.minimum.reduceat(rates, starts, axis=1), np.maximum.reduceat(rates, starts, axis=1)
+    block_winners = won[starts]
+    # TOC grows with every rate, so the winner's TOC at the top of the box bounds it in the
+    # block; the tolerance taken from it is as far from the rounding and from real gaps.
+    tolerance = CLOSE_CALL * np.einsum("ib,ib->b", losses[:, block_winners], highs)
+    close = []
+    # The bounds of a few blocks at a time: (4, blocks, offers) values, about 32 MiB at most.
+    per_group = max(1, (1 << 20) // n_offers)
+    for group in range(0, starts.size, per_group):
+        boxes = slice(group, group + per_group)
+        gaps = losses[:, None, :] - losses[:, block_winners[boxes], None]  # L_j - L_w
+        low_b, high_b = lows[1:, boxes, None], highs[1:, boxes, None]
+        bound = gaps[0] + np.minimum(gaps[1:] * low_b, gaps[1:] * high_b).sum(axis=0)
+        # Twice the tolerance: the bound itself is rounded. A twin of w is no rival.
+        near = (bound <= 2.0 * tolerance[boxes, None]) & np.any(gaps, axis=0)
+        for box in np.flatnonzero(near.any(axis=1)).tolist():
+            rivals = np.ascontiguousarray(gaps[:, box, near[box]].T)  # (rivals, 4)
+            step = max(1, PRODUCT_ELEMENTS // rivals.shape[0])
+            first, last, limit = starts[group + box], stops[group + box], tolerance[group + box]
+            for k in range(first, last, step):
+                stop = min(last, k + step)
+                close.append(draws[k:stop][(rivals @ rates[:, k:stop]).min(axis=0) <= limit])
+    again = np.concatenate(close) if close else draws[:0]
+    recost = max(1, PRODUCT_ELEMENTS // n_offers)
+    for k in range(0, again.size, recost):
+        part = again[k : k + recost]
+        a, b, c = rate_columns[1:, part]
+        winners[part] = lowest_toc_index(offers.toc(a, b, c))
 
 
 def _toc_by_offer(losses_by_offer: np.ndarray, rates_by_column: np.ndarray, out: np.ndarray) -> None:

@@ -273,6 +273,9 @@ class LotOut(Out):
     kept_by_award: bool = Field(
         default=False, description="True while an award stands: the lot keeps the revision that priced the award "
         "when the tender moves to another.")
+    loading_warnings: list[dict[str, str]] = Field(
+        default_factory=list, description="The lot's own peak and growth, where unusual (e.g. a peak above the "
+        "rating within the evaluation period), each {code, field, message}; never a refusal.")
 
 
 ExchangeRates = Annotated[
@@ -852,6 +855,7 @@ class RuleOut(BaseModel):
 class ImportCellOut(BaseModel):
     column: str
     message: str
+    code: str = Field("", description="For a warning: its stable code (as on ranking rows).")
 
 
 class ImportRowOut(BaseModel):

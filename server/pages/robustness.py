@@ -58,7 +58,7 @@ def start_monte_carlo(request: Request, lot_id: int, session: SessionDep, form: 
             run = service.start_run(session, request.app.state.db, lot_id, mc)
         except InvalidField as exc:
             views.discard(session)
-            errors = {exc.field: exc.detail}
+            errors = {robustness_views.error_key(exc.field): exc.detail}
         else:
             if not is_htmx(request):
                 return see_other(request, _page(lot_id, run.id))

@@ -125,10 +125,12 @@ def tornado_chart(tornado: schemas.TornadoOut, labels: dict[str, str], values: d
     Bars are measured from the base margin (0 on the axis). When some input lets a rival
     overtake, a dashed line marks where the margin reaches zero (at minus the base margin).
     ``labels`` names each input; ``values`` gives its low and high value as text (with unit) for
-    the tooltips. Margins rounded to whole currency units. Series ids: ``low`` and ``high``.
+    the tooltips. An input whose low or high value was moved into its allowed range is named
+    "(held at its limit)". Margins rounded to whole currency units. Series ids: ``low`` and ``high``.
     """
     base = tornado.rows[0].margin_base if tornado.rows else 0.0
-    names = [labels.get(r.input, r.input) for r in tornado.rows]
+    names = [labels.get(r.input, r.input) + (" (held at its limit)" if r.low_clipped or r.high_clipped else "")
+             for r in tornado.rows]
 
     def bars(side: str, colour: str) -> dict[str, Any]:
         data = []

@@ -12,16 +12,16 @@ from pydantic import Field, ValidationError
 from sqlalchemy.orm import Session
 
 from server import schemas
-from server.pages.basis_form import method_boxes
+from server.pages.basis_form import input_label, method_boxes
 from server.pages.forms import FormValues, plain_message
 from server.pages.robustness_charts import rate_map_chart, toc_band_chart, tornado_chart, win_probability_chart
 from server.pages.templating import fmt_plain, input_value
 from server.services import pages_robustness
+from server.services import robustness as service
 
 # The inputs the tornado and the Monte Carlo forms move, in the order they show them.
 MOVED_INPUTS = ("energy_price_per_kwh", "energy_escalation_pct", "discount_rate_pct", "years", "peak_load_pu",
                 "load_growth_pct", "loss_factor", "capacity_cost_per_kw_year")
-PCT_INPUTS = pages_robustness.PCT_INPUTS
 RATE_MAP_BOXES = ("no_load_rate_min", "no_load_rate_max", "load_rate_min", "load_rate_max", "steps")
 RATE_MAP_STEPS = 60
 DISTRIBUTIONS = [("fixed", "Fixed"), ("uniform", "Uniform"), ("triangular", "Triangular"), ("normal", "Normal")]
@@ -86,31 +86,46 @@ def _errors(exc: ValidationError, boxes: dict[tuple[Any, ...], str] | None = Non
 
 # --- the tornado ----------------------------------------------------------------------------------
 
+def _allowed(name: str, value: float) -> float:
+    """``value`` moved into the input's allowed range, as the tornado clips it."""
+    return service.input_limits()[name].clip(value)
+
+
 def tornado_defaults(base: dict[str, float]) -> dict[str, str]:
-    """The low and high box of each moved input, as the service moves an input left out: rates of
-    interest 2 points either way, years and other inputs 20 %, a fraction never above 1. An input
-    at zero gets empty boxes (the service leaves it out)."""
+    """The low and high box of each moved input, as the service moves an input left out
+    (``robustness.default_ranges``: rates of interest 2 points either way, years and other
+    inputs 20 %), kept inside the input's allowed range, so that a box never offers a value
+    the cost basis form would refuse. An input at zero gets empty boxes (the service leaves it
+    out)."""
+    ranges = service.default_ranges(base)
     form: dict[str, str] = {}
     for name in MOVED_INPUTS:
-        value = base[name]
-        if name in PCT_INPUTS:
-            low, high = max(value - 2.0, -50.0), value + 2.0
-        elif name == "years":
-            low, high = max(int(round(value * 0.8)), 1), int(round(value * 1.2))
-        elif name == "loss_factor":
-            low, high = value * 0.8, min(value * 1.2, 1.0)
-        elif value > 0:
-            low, high = value * 0.8, value * 1.2
-        else:
+        if name not in ranges:
             form[f"{name}_low"] = form[f"{name}_high"] = ""
             continue
+        low, high = (_allowed(name, value) for value in ranges[name])
         form[f"{name}_low"], form[f"{name}_high"] = _shown(low), _shown(high)
     return form
 
 
+def error_key(field: str) -> str:
+    """Where a service refusal goes on the page: the box it names (``years``,
+    ``ranges.years.low``, ``inputs.discount_rate_pct.sd``), else, for an input without a box,
+    its label (the form's list of errors shows the key as the label it is), else the field."""
+    parts = field.removeprefix("ranges.").removeprefix("inputs.").split(".")
+    name = parts[0]
+    if name not in service.SENSITIVITY_INPUTS:
+        return field
+    if name not in MOVED_INPUTS:
+        return input_label(name)
+    box = parts[1] if len(parts) > 1 else ("low" if not field.startswith("inputs.") else "dist")
+    return f"{name}_{box}"
+
+
 def tornado_boxes() -> dict[str, str]:
-    """The box a service refusal naming an input belongs beside."""
-    return {name: f"{name}_low" for name in MOVED_INPUTS}
+    """The box (or label) a service refusal naming an input of the tornado belongs beside."""
+    names = [*service.SENSITIVITY_INPUTS, *(f"ranges.{n}.{side}" for n in MOVED_INPUTS for side in ("low", "high"))]
+    return {name: error_key(name) for name in names}
 
 
 def tornado_request(form: FormValues) -> tuple[schemas.TornadoIn | None, dict[str, str]]:
@@ -151,17 +166,34 @@ def _range_errors(name: str, low: float, high: float) -> dict[str, str]:
     return errors
 
 
+def clip_notes(row: schemas.TornadoRowOut, label: str, unit: str) -> dict[str, str]:
+    """What the tornado says about a value it moved into the input's allowed range, by side
+    ("Cooling in service capped at 8,760 hours a year"), in the page's words and units."""
+    notes = {}
+    if row.low_clipped:
+        limit = service.input_limits().get(row.input)
+        if limit is not None and limit.low_open:
+            notes["low"] = f"{label} raised to just above {shown_value(limit.low, unit)}"
+        else:
+            notes["low"] = f"{label} raised to {shown_value(row.low_value, unit)}"
+    if row.high_clipped:
+        notes["high"] = f"{label} capped at {shown_value(row.high_value, unit)}"
+    return notes
+
+
 def tornado_rows(tornado: schemas.TornadoOut, wording: dict[str, tuple[str, str]],
                  bidders: dict[int, str]) -> list[dict[str, Any]]:
-    """The tornado's rows for the table: label, values with units, margins and who leads."""
+    """The tornado's rows for the table: label, values with units, margins, who leads, and what
+    was clipped to the input's allowed range."""
     rows = []
     for row in tornado.rows:
-        label, unit = wording.get(row.input, (row.input, ""))
+        label, unit = wording.get(row.input, (input_label(row.input), ""))
         rows.append({
             "row": row, "label": label, "unit": unit,
             "base": shown_value(row.base_value, unit),
             "low": shown_value(row.low_value, unit),
             "high": shown_value(row.high_value, unit),
+            "clipped": clip_notes(row, label, unit),
             "leader_low": bidders.get(row.leader_low_offer_id, str(row.leader_low_offer_id)),
             "leader_high": bidders.get(row.leader_high_offer_id, str(row.leader_high_offer_id)),
         })
@@ -181,12 +213,11 @@ def monte_carlo_defaults(base: dict[str, float]) -> dict[str, str]:
     for name in MOVED_INPUTS:
         value = base[name]
         low, high = ranges[f"{name}_low"], ranges[f"{name}_high"]
-        if name == "energy_price_per_kwh":
-            low, high = _shown(value * 0.75), _shown(value * 1.25)
-        elif name == "discount_rate_pct":
-            low, high = _shown(value - 2.0), _shown(value + 2.0)
-        elif name == "load_growth_pct":
-            low, high = _shown(value - 1.0), _shown(value + 1.0)
+        drawn = {"energy_price_per_kwh": (value * 0.75, value * 1.25), "discount_rate_pct": (value - 2.0, value + 2.0),
+                 "load_growth_pct": (value - 1.0, value + 1.0)}.get(name)
+        if drawn:
+            # Inside the input's allowed range, as every draw must be.
+            low, high = (_shown(_allowed(name, end)) for end in drawn)
         spread = (float(high) - float(low)) / 4 if low and high else 0.0
         form |= {f"{name}_dist": {"energy_price_per_kwh": "triangular", "discount_rate_pct": "uniform",
                                   "load_growth_pct": "uniform"}.get(name, "fixed"),
@@ -196,22 +227,9 @@ def monte_carlo_defaults(base: dict[str, float]) -> dict[str, str]:
 
 
 def _distribution_errors(name: str, dist: schemas.DistributionIn) -> dict[str, str]:
-    """What the domain would refuse about one distribution, in words beside its boxes."""
-    errors: dict[str, str] = {}
-    low, high = dist.low, dist.high
-    if low is not None and high is not None and not low < high:
-        errors[f"{name}_high"] = "must be more than the low value"
-    if dist.dist == "triangular" and low is not None and high is not None and dist.mode is not None:
-        if not low <= dist.mode <= high:
-            errors[f"{name}_mode"] = "must lie between the low and the high value"
-    if dist.dist == "normal" and dist.sd is not None and dist.sd <= 0:
-        errors[f"{name}_sd"] = "must be more than 0"
-    if name == "years":
-        for key in ("low", "high"):
-            value = getattr(dist, key)
-            if value is not None and (not float(value).is_integer() or value < 1):
-                errors.setdefault(f"years_{key}", "must be a whole number of years, 1 or more")
-    return errors
+    """What the service would refuse about one distribution (``robustness.distribution_problems``:
+    bounds inside the input's allowed range, low below high, and so on), beside its boxes."""
+    return {error_key(field): message for field, message in service.distribution_problems({name: dist}).items()}
 
 
 def monte_carlo_request(form: FormValues) -> tuple[schemas.MonteCarloIn | None, dict[str, str]]:
@@ -322,8 +340,10 @@ def page_context(
     tornado = page.tornado
     if tornado_form is None:
         tornado_form = tornado_defaults(base) if base else {}
+    rows = tornado_rows(tornado, wording, bidders) if tornado else []
     context |= {"tornado_form": tornado_form, "tornado_errors": tornado_errors | page.tornado_errors,
-                "tornado": tornado, "tornado_rows": tornado_rows(tornado, wording, bidders) if tornado else [],
+                "tornado": tornado, "tornado_rows": rows,
+                "tornado_held": [t["clipped"][side] for t in rows for side in ("low", "high") if side in t["clipped"]],
                 "tornado_chart": _tornado_chart(tornado, wording, facts.currency) if tornado else None}
     # The Monte Carlo.
     if mc_form is None:
@@ -339,11 +359,13 @@ def _rate_map_shown(rate_map: schemas.RateMapOut) -> dict[str, str]:
 
 
 def _tornado_chart(tornado: schemas.TornadoOut, wording: dict[str, tuple[str, str]], currency: str) -> dict[str, Any]:
-    labels = {name: label for name, (label, _) in wording.items()}
+    labels = {row.input: wording.get(row.input, (input_label(row.input), ""))[0] for row in tornado.rows}
     values = {}
     for row in tornado.rows:
         unit = wording.get(row.input, ("", ""))[1]
-        values[row.input] = (shown_value(row.low_value, unit), shown_value(row.high_value, unit))
+        low = shown_value(row.low_value, unit) + (", raised to the lowest allowed" if row.low_clipped else "")
+        high = shown_value(row.high_value, unit) + (", capped at the highest allowed" if row.high_clipped else "")
+        values[row.input] = (low, high)
     return tornado_chart(tornado, labels, values, currency)
 
 

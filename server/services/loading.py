@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from domain.rates import CapitalisationRates
 from server import schemas
-from server.services.cost_bases import parse_inputs, rates_for
+from server.services.cost_bases import basis_warnings, parse_inputs, rates_for
 from server.storage.models import CostBasisRevision, Lot
 
 
@@ -73,3 +73,18 @@ def lot_inputs(lot: Lot, revision: CostBasisRevision | None = None):
         f"revision {revision.revision}.",
     )
     return lot_inputs, loading, True
+
+
+# The cost basis warnings that a lot's own loading can raise (the rest concern the basis alone).
+LOADING_WARNING_CODES = frozenset({"peak_above_rating", "levelised_peak_above_rating"})
+
+
+def own_loading_warnings(lot: Lot) -> list[dict[str, str]]:
+    """Where the lot sets its own peak or growth: a peak that growth drives above the rating within
+    the evaluation period (the same check as the cost basis's, on the lot's own inputs)."""
+    if lot.peak_load_pu is None and lot.load_growth_pct is None:
+        return []
+    inputs, _, recomputed = lot_inputs(lot)
+    if not recomputed:
+        return []
+    return [w for w in basis_warnings(inputs, lot.tender.currency) if w["code"] in LOADING_WARNING_CODES]

@@ -8,7 +8,7 @@ from pydantic import ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from domain.plausibility import offer_warnings
+from domain.plausibility import offer_warnings, price_warnings
 from server import schemas
 from server.errors import Conflict, ImportRefused, InvalidField
 from server.exports import write_csv
@@ -110,7 +110,7 @@ def _preview(session: Session, tender, header: list[str], data_rows: list[list[A
             if key in seen:
                 errors.append({"column": "bidder", "message": f"the same lot and bidder as row {seen[key]}"})
             seen.setdefault(key, number)
-            warnings = [{"column": w.field, "message": w.message} for w in offer_warnings(
+            warnings = [{"column": w.field, "message": w.message, "code": w.code} for w in offer_warnings(
                 lot.rating_kva, offer.no_load_loss_w, offer.load_loss_w, offer.impedance_pct)]
             current = existing.get(key)
             fields = offer.model_dump()
@@ -126,7 +126,29 @@ def _preview(session: Session, tender, header: list[str], data_rows: list[list[A
             "bidder": bidder, "action": "refused" if errors else action, "values": _jsonable(values),
             "errors": errors, "warnings": warnings,
         })
+    _flag_prices(tender, existing, preview)
     return preview
+
+
+def _flag_prices(tender, existing: dict[tuple[int, str], Offer], preview: list[dict]) -> None:
+    """Each row's price against the median of its lot as the commit would leave it (the file's rows
+    and the lot's offers the file does not replace), in the tender's currency."""
+    rates = {tender.currency: 1.0, **(tender.exchange_rates or {})}
+
+    def in_tender_currency(price: float, currency: str | None) -> float | None:
+        rate = rates.get(currency or tender.currency)
+        return None if rate is None else price * rate
+
+    for lot in tender.lots:
+        rows = [r for r in preview if r["lot_id"] == lot.id and not r["errors"]]
+        replaced = {_key(lot.id, r["values"]["bidder"]) for r in rows}
+        kept = [in_tender_currency(o.unit_price, o.currency) for key, o in existing.items()
+                if key[0] == lot.id and key not in replaced]
+        priced = [in_tender_currency(r["values"]["unit_price"], r["values"].get("currency")) for r in rows]
+        flags = price_warnings([p for p in priced + kept if p is not None], tender.currency)
+        usable = [r for r, p in zip(rows, priced, strict=True) if p is not None]
+        for row, found in zip(usable, flags, strict=False):
+            row["warnings"] += [{"column": w.field, "message": w.message, "code": w.code} for w in found]
 
 
 def _jsonable(values: dict) -> dict:

@@ -3,22 +3,31 @@ cost basis inputs, and Monte Carlo runs (in the request, or in the background)."
 
 from __future__ import annotations
 
+import functools
+import math
+import re
 import threading
+import typing
 from datetime import UTC, timedelta
 from dataclasses import dataclass
 from typing import Any
 
+import annotated_types
 import numpy as np
 from sqlalchemy.orm import Session
 
 from domain.errors import DomainError, InvalidInput
 from domain.rates import CapitalisationRates
 from domain.sensitivity import (
+    OPTIONAL_RATE_INPUT_NAMES,
+    InputRange,
     OfferArrays,
     SimulationCancelled,
     break_even,
     break_even_sentences,
+    check_distributions,
     lower_envelope_lines,
+    lowest_toc_index,
     monte_carlo,
     present_worth_rates_fn,
     split_leader,
@@ -50,6 +59,57 @@ def _api_name(name: str) -> str:
 
 def _scale(name: str) -> float:
     return 100.0 if name in PCT_INPUTS else 1.0
+
+
+# The inputs the tornado and the Monte Carlo may move (API names).
+SENSITIVITY_INPUTS: tuple[str, ...] = typing.get_args(schemas.SensitivityInput)
+
+
+def _schema_range(name: str) -> InputRange:
+    """The bounds the cost basis schema puts on one present-worth input (API units)."""
+    info = schemas.PresentWorthInputs.model_fields[name]
+    low, high, low_open = -math.inf, math.inf, False
+    for bound in info.metadata:
+        if isinstance(bound, annotated_types.Ge):
+            low = float(bound.ge)
+        elif isinstance(bound, annotated_types.Gt):
+            low, low_open = float(bound.gt), True
+        elif isinstance(bound, annotated_types.Le):
+            high = float(bound.le)
+    return InputRange(low, high, low_open=low_open, whole=info.annotation is int)
+
+
+@functools.cache
+def input_limits() -> dict[str, InputRange]:
+    """Allowed values of each input the tornado and the Monte Carlo move, in the API's names and
+    units (percent for rates of interest): the bounds of ``schemas.PresentWorthInputs``, so that
+    these tools never move an input where the cost basis form would refuse it. The cooling hours
+    are also held to the hours of the year the present-worth rates count (8760): the domain
+    refuses more cooling than there are hours."""
+    limits = {name: _schema_range(name) for name in SENSITIVITY_INPUTS}
+    cooling = limits["cooling_hours_per_year"]
+    hours = OPTIONAL_RATE_INPUT_NAMES["hours_per_year"]
+    limits["cooling_hours_per_year"] = InputRange(cooling.low, min(cooling.high, hours), cooling.low_open)
+    return limits
+
+
+def _domain_limits() -> dict[str, InputRange]:
+    """``input_limits`` in the domain's names and units (fractions for rates of interest)."""
+    out = {}
+    for name, limit in input_limits().items():
+        scale = _scale(name)
+        out[_domain_name(name)] = InputRange(limit.low / scale, limit.high / scale, limit.low_open, limit.whole)
+    return out
+
+
+def _api_field(field: str) -> str:
+    """A domain error's field in the API's names: ``distributions[discount_rate].sd`` becomes
+    ``inputs.discount_rate_pct.sd`` (the member of the request it is about)."""
+    found = re.fullmatch(r"distributions\[(\w+)\](?:\.(\w+))?", field)
+    if found is None:
+        return _api_name(field)
+    name, key = found.groups()
+    return f"inputs.{_api_name(name)}" + (f".{key}" if key else "")
 
 
 @dataclass
@@ -86,13 +146,75 @@ def base_inputs(lot) -> dict[str, float]:
 
 
 def _domain_errors(fn):
+    """Domain refusals as InvalidField named as the API names the input. The robustness
+    services check every input in the API's units first (``input_limits``,
+    ``distribution_problems``), so a domain message that gets here names no number in a
+    fraction the user never typed."""
     def wrapped(*args, **kwargs):
         try:
             return fn(*args, **kwargs)
         except InvalidInput as exc:
-            raise InvalidField(_api_name(exc.field), exc.message) from exc
+            raise InvalidField(_api_field(exc.field), exc.message) from exc
     wrapped.__name__, wrapped.__doc__ = fn.__name__, fn.__doc__
     return wrapped
+
+
+def _number(value: float, name: str) -> str:
+    """A limit or a value as the page shows it: percent for rates of interest, no float noise."""
+    text = f"{int(value):,}" if float(value).is_integer() and abs(value) < 1e15 else f"{value:.6g}"
+    return f"{text} %" if name in PCT_INPUTS else text
+
+
+def limit_problem(name: str, value: float) -> str | None:
+    """Why ``value`` is not an allowed value of input ``name`` (API units), in words, or None."""
+    limit = input_limits()[name]
+    if limit.whole and (not float(value).is_integer() or value < limit.low):
+        return f"must be a whole number of years, {_number(limit.low, name)} or more"
+    if value <= limit.low if limit.low_open else value < limit.low:
+        relation = "more than {}" if limit.low_open else "{} or more"
+        return f"must be {relation.format(_number(limit.low, name))}"
+    if value > limit.high:
+        return f"must be {_number(limit.high, name)} or less"
+    return None
+
+
+def distribution_problems(inputs: dict[str, schemas.DistributionIn]) -> dict[str, str]:
+    """Every problem of a Monte Carlo request's distributions, as {field: message}, the field
+    ``inputs.<input>.<box>`` and the message in the API's units (percent for rates), naming no
+    input: the bounds of each distribution within the input's allowed values, so that no draw
+    falls outside them; low below high; the most likely value between them; a positive spread."""
+    problems: dict[str, str] = {}
+    for name, dist in inputs.items():
+        used = {"fixed": ("mode",), "uniform": ("low", "high"), "triangular": ("low", "mode", "high"),
+                "normal": ("low", "high")}[dist.dist]
+        for key in used:
+            value = getattr(dist, key)
+            found = limit_problem(name, value) if value is not None else None
+            if found:
+                problems[f"inputs.{name}.{key}"] = found
+        if dist.dist != "fixed" and dist.low is not None and dist.high is not None and not dist.low < dist.high:
+            problems.setdefault(f"inputs.{name}.high", "must be more than the low value")
+        if dist.dist == "triangular" and None not in (dist.low, dist.mode, dist.high):
+            if not dist.low <= dist.mode <= dist.high:
+                problems.setdefault(f"inputs.{name}.mode", "must lie between the low and the high value")
+        if dist.dist == "normal" and dist.sd is not None and not dist.sd > 0:
+            problems.setdefault(f"inputs.{name}.sd", "must be more than 0")
+    return problems
+
+
+def _check_monte_carlo(base: dict[str, float], request: schemas.MonteCarloIn) -> dict[str, dict[str, Any]]:
+    """The request's distributions in domain units, after refusing (InvalidField) what the
+    Monte Carlo would refuse, the first problem first."""
+    problems = distribution_problems(request.inputs)
+    if problems:
+        field, message = next(iter(problems.items()))
+        raise InvalidField(field, message)
+    distributions = _distributions(request.inputs)
+    try:
+        check_distributions(base, distributions)
+    except InvalidInput as exc:
+        raise InvalidField(_api_field(exc.field), exc.message) from exc
+    return distributions
 
 
 @_domain_errors
@@ -145,48 +267,64 @@ def lot_rate_map(session: Session, lot_id: int, request: schemas.RateMapIn) -> s
     )
 
 
-def _default_ranges(base: dict[str, float]) -> dict[str, tuple[float, float]]:
-    ranges = {}
-    for name, value in base.items():
-        if name == "carbon_cost_per_kwh":
+def default_ranges(base: dict[str, float]) -> dict[str, tuple[float, float]]:
+    """How the tornado moves an input it is given no range for, in the API's names and units:
+    rates of interest 2 points either way, years 20 % either way in whole years, other inputs
+    20 % either way (an input at zero is not moved). Not clipped here: the tornado clips each
+    value to ``input_limits`` and says which it clipped."""
+    ranges: dict[str, tuple[float, float]] = {}
+    for name in SENSITIVITY_INPUTS:
+        value = base.get(name)
+        if value is None:
             continue
-        if name in PCT_INPUTS.values():
-            ranges[name] = (max(value - 0.02, -0.5), value + 0.02)
+        if name in PCT_INPUTS:
+            ranges[name] = (value - 2.0, value + 2.0)
         elif name == "years":
             ranges[name] = (max(int(round(value * 0.8)), 1), int(round(value * 1.2)))
-        elif name in ("loss_factor", "responsibility_factor"):
-            ranges[name] = (value * 0.8, min(value * 1.2, 1.0))
         elif value > 0:
             ranges[name] = (value * 0.8, value * 1.2)
     return ranges
 
 
+def api_inputs(base: dict[str, float]) -> dict[str, float]:
+    """Domain inputs (fractions for rates of interest) in the API's names and units (percent)."""
+    return {_api_name(name): value * _scale(_api_name(name)) for name, value in base.items()}
+
+
 @_domain_errors
 def lot_tornado(session: Session, lot_id: int, request: schemas.TornadoIn) -> schemas.TornadoOut:
+    """The tornado of a lot's present-worth inputs: each input at its low and its high value (as
+    asked, else ``default_ranges``), clipped to ``input_limits``; leader and runner-up at the
+    lot's rates, ties broken as the ranking breaks them."""
     ctx = _context(session, lot_id, minimum=2)
     base = base_inputs(ctx.lot)
-    ranges = _default_ranges(base)
-    for name, (low, high) in request.ranges.items():
-        domain_name = _domain_name(name)
-        ranges[domain_name] = (low / _scale(name), high / _scale(name))
-        if domain_name == "years":
-            ranges[domain_name] = (int(low), int(high))
-    rows = tornado(base, ranges, present_worth_rates_fn, ctx.offers)
+    asked = default_ranges(api_inputs(base)) | {name: (low, high) for name, (low, high) in request.ranges.items()}
+    if "years" in request.ranges:
+        for side, value in zip(("low", "high"), request.ranges["years"], strict=True):
+            if not float(value).is_integer():
+                raise InvalidField(f"ranges.years.{side}", "must be a whole number of years")
+    ranges: dict[str, tuple[float, float]] = {}
+    for name, (low, high) in asked.items():
+        ranges[_domain_name(name)] = (int(low), int(high)) if name == "years" else (low / _scale(name), high / _scale(name))
+    rows = tornado(base, ranges, present_worth_rates_fn, ctx.offers, limits=_domain_limits())
     leader, rivals = split_leader(ctx.offers, ctx.rates)
     runner_up = None
     if len(rivals.offer_ids):
-        runner_up = int(rivals.offer_ids[int(np.argmin(rivals.toc(ctx.rates.no_load_rate_per_kw, ctx.rates.load_rate_per_kw,
-                                                                   ctx.rates.aux_rate_per_kw)))])
-    return schemas.TornadoOut(
-        lot_id=ctx.lot.id, leader_offer_id=int(leader.offer_ids[0]), runner_up_offer_id=runner_up,
-        rows=[schemas.TornadoRowOut(
-            input=_api_name(r.input_name), base_value=r.base_value * _scale(_api_name(r.input_name)),
-            low_value=r.low_value * _scale(_api_name(r.input_name)),
-            high_value=r.high_value * _scale(_api_name(r.input_name)), margin_base=r.margin_base,
-            margin_low=r.margin_low, margin_high=r.margin_high, swing=r.swing, leader_low_offer_id=r.leader_id_low,
-            leader_high_offer_id=r.leader_id_high, leader_changes=r.leader_changed_low or r.leader_changed_high,
-        ) for r in rows],
-    )
+        rates = ctx.rates
+        runner_up = int(rivals.offer_ids[lowest_toc_index(
+            rivals.toc(rates.no_load_rate_per_kw, rates.load_rate_per_kw, rates.aux_rate_per_kw))])
+    out_rows = []
+    for r in rows:
+        name = _api_name(r.input_name)
+        out_rows.append(schemas.TornadoRowOut(
+            input=name, base_value=r.base_value * _scale(name), low_value=r.low_value * _scale(name),
+            high_value=r.high_value * _scale(name), low_clipped=r.low_clipped, high_clipped=r.high_clipped,
+            margin_base=r.margin_base, margin_low=r.margin_low, margin_high=r.margin_high, swing=r.swing,
+            leader_low_offer_id=r.leader_id_low, leader_high_offer_id=r.leader_id_high,
+            leader_changes=r.leader_changed_low or r.leader_changed_high,
+        ))
+    return schemas.TornadoOut(lot_id=ctx.lot.id, leader_offer_id=int(leader.offer_ids[0]),
+                              runner_up_offer_id=runner_up, rows=out_rows)
 
 
 def _distributions(inputs: dict[str, schemas.DistributionIn]) -> dict[str, dict[str, Any]]:
@@ -200,21 +338,30 @@ def _distributions(inputs: dict[str, schemas.DistributionIn]) -> dict[str, dict[
 
 
 def _mc_out(ctx: LotContext, result, request: schemas.MonteCarloIn) -> schemas.MonteCarloOut:
+    """Rows by win probability, most first; equal shares (offers that never win, or offers alike in
+    price and losses) in the order of the ranking at the run's base rates."""
+    base_toc = ctx.offers.toc(result.base_no_load_rate_per_kw, result.base_load_rate_per_kw,
+                              result.base_aux_rate_per_kw)
+    # A stable sort on TOC of offers already in the tie order is the ranking's order.
+    place = {int(ctx.offers.offer_ids[k]): n for n, k in enumerate(np.argsort(base_toc, kind="stable"))}
     return schemas.MonteCarloOut(
         lot_id=ctx.lot.id, draws=result.draws, seed=result.seed, leader_offer_id=result.base_leader_id,
         rows=[schemas.MonteCarloRowOut(offer_id=o.offer_id, bidder=ctx.bidders[o.offer_id],
                                        win_probability=o.win_probability, toc_p5=o.toc_p5, toc_p50=o.toc_p50,
                                        toc_p95=o.toc_p95, toc_mean=o.toc_mean, expected_regret=o.expected_regret)
-              for o in sorted(result.offers, key=lambda o: -o.win_probability)],
+              for o in sorted(result.offers, key=lambda o: (-o.win_probability, place[o.offer_id]))],
     )
 
 
 @_domain_errors
 def lot_monte_carlo(session: Session, lot_id: int, request: schemas.MonteCarloIn, progress=None,
                     should_stop=None) -> schemas.MonteCarloOut:
+    """A Monte Carlo of the lot's present-worth inputs (rows as ``_mc_out`` orders them); a draw's
+    exact ties go to the offer the ranking puts first."""
     ctx = _context(session, lot_id)
     base = base_inputs(ctx.lot)
-    result = monte_carlo(ctx.offers, base, _distributions(request.inputs), request.draws, request.seed,
+    distributions = _check_monte_carlo(base, request)
+    result = monte_carlo(ctx.offers, base, distributions, request.draws, request.seed,
                          progress=progress, should_stop=should_stop)
     return _mc_out(ctx, result, request)
 
@@ -224,7 +371,9 @@ def lot_monte_carlo(session: Session, lot_id: int, request: schemas.MonteCarloIn
 def start_run(session: Session, database, lot_id: int, request: schemas.MonteCarloIn) -> MonteCarloRun:
     """Check the request, store the run and start it in a background thread."""
     ctx = _context(session, lot_id)
-    base_inputs(ctx.lot)  # refuse now, not in the background, when the basis cannot be moved
+    # Refuse now, not in the background, a basis that cannot be moved or a distribution the
+    # Monte Carlo would refuse.
+    _check_monte_carlo(base_inputs(ctx.lot), request)
     run = MonteCarloRun(lot_id=ctx.lot.id, created_by=audit.get_actor(session).username,
                         request=request.model_dump(mode="json"))
     session.add(run)
@@ -256,7 +405,11 @@ def _run_in_background(database, run_id: int) -> None:
             run.status, run.progress, run.result = "done", 1.0, out.model_dump(mode="json")
         except SimulationCancelled:
             run.status, run.message = "cancelled", "Cancelled on request."
-        except (DomainError, InvalidField) as exc:
+        except InvalidField as exc:
+            # Inputs were checked when the run started: what fails here changed since (the lot,
+            # its offers, its basis), and the message says it without naming a field.
+            run.status, run.message = "failed", exc.detail
+        except DomainError as exc:
             run.status, run.message = "failed", str(exc)
         except Exception as exc:  # a background thread has no caller to raise to
             run.status, run.message = "failed", f"Unexpected error: {type(exc).__name__}"
@@ -314,11 +467,22 @@ def award_robustness(session: Session, lot_id: int) -> dict[str, Any]:
         out["monte_carlo_note"] = exc.detail
         return out
     e, i, g = base["energy_price_per_kwh"], base["discount_rate"], base["load_growth"]
+    limits = input_limits()
+
+    def within(name: str, value: float) -> float:
+        return limits[name].clip(value)
+
+    inputs = {
+        "energy_price_per_kwh": schemas.DistributionIn(dist="triangular", low=within("energy_price_per_kwh", e * 0.75),
+                                                       mode=e, high=within("energy_price_per_kwh", e * 1.25)),
+        "discount_rate_pct": schemas.DistributionIn(dist="uniform", low=within("discount_rate_pct", 100 * i - 2),
+                                                    high=within("discount_rate_pct", 100 * i + 2)),
+        "load_growth_pct": schemas.DistributionIn(dist="uniform", low=within("load_growth_pct", 100 * g - 1),
+                                                  high=within("load_growth_pct", 100 * g + 1)),
+    }
+    # A range with nothing in it (a free energy price) leaves that input at the basis.
     request = schemas.MonteCarloIn(draws=AWARD_DRAWS, seed=1, inputs={
-        "energy_price_per_kwh": schemas.DistributionIn(dist="triangular", low=e * 0.75, mode=e, high=e * 1.25),
-        "discount_rate_pct": schemas.DistributionIn(dist="uniform", low=100 * i - 2, high=100 * i + 2),
-        "load_growth_pct": schemas.DistributionIn(dist="uniform", low=100 * g - 1, high=100 * g + 1),
-    })
+        name: dist for name, dist in inputs.items() if dist.low < dist.high})
     result = lot_monte_carlo(session, lot_id, request)
     leader = next(r for r in result.rows if r.offer_id == result.leader_offer_id)
     out["monte_carlo"] = {"draws": AWARD_DRAWS, "seed": 1, "inputs": AWARD_INPUTS,

@@ -10,6 +10,7 @@ from server.errors import InvalidField
 from server.services.common import apply_patch, check_version, commit, get_or_404
 from server.services.compliance import check_keys
 from server.services.cost_bases import get_revision
+from server.services.loading import own_loading_warnings
 from server.services.locks import ensure_no_records, ensure_open, ensure_tender_open
 from server.storage.models import LoadShape, Lot, Offer, Tender
 
@@ -124,6 +125,7 @@ def lot_out(lot: Lot, offer_count: int = 0) -> schemas.LotOut:
     out.offer_count = offer_count
     out.priced_on_revision = lot.pricing_revision.revision
     out.kept_by_award = lot.cost_basis_revision_id is not None
+    out.loading_warnings = own_loading_warnings(lot)
     return out
 
 

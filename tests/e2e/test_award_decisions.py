@@ -245,3 +245,32 @@ def test_the_award_report_shows_the_loading_that_priced_the_lot(page_client):
 def test_award_in_the_schema_documents_its_refusals():
     fields = schemas.AwardIn.model_fields
     assert {"offer_id", "reason_kind", "reason", "acknowledge_warnings", "note"} <= set(fields)
+
+
+def test_the_import_preview_flags_a_price_far_from_the_lots_median(client):
+    # Common practice, no source: below half or above twice the median of the lot's offers.
+    _, tender_id, lot_id = f.setup_lot(client)
+    lot = client.get(f"/api/v1/tenders/{tender_id}").json()["lots"][0]["name"]
+    client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder="Stored", unit_price=12000))
+    content = (
+        "lot,bidder,unit_price,no_load_loss_w,load_loss_w,impedance_pct\n"
+        f"{lot},Fair,12500,430,4600,4\n"
+        f"{lot},Digit short,1200,430,4600,4\n"
+    ).encode()
+    staged = client.post(f"/api/v1/tenders/{tender_id}/offer-imports",
+                         files={"file": ("offers.csv", content, "text/csv")}).json()
+    rows = {r["bidder"]: r for r in staged["rows"]}
+    assert [w["code"] for w in rows["Digit short"]["warnings"]] == ["price_far_from_median"]
+    assert rows["Fair"]["warnings"] == []
+
+
+def test_a_lots_own_peak_growing_above_the_rating_is_flagged(client):
+    # Common practice, no source: peak_t = peak x (1 + g)^(t - 1) above 1.0 pu within the period.
+    basis_id = client.post("/api/v1/cost-bases", json=f.present_worth_basis(years=30)).json()["id"]
+    body = f.tender(basis_id, lots=[f.lot(peak_load_pu=0.9, load_growth_pct=2.0)])
+    lot = client.post("/api/v1/tenders", json=body).json()["lots"][0]
+    (warning,) = lot["loading_warnings"]
+    assert warning["code"] == "peak_above_rating" and "first in year 7" in warning["message"]
+    calm = client.post("/api/v1/tenders", json=f.tender(basis_id, reference="T-002",
+                                                        lots=[f.lot(peak_load_pu=0.5, load_growth_pct=1.0)])).json()
+    assert calm["lots"][0]["loading_warnings"] == []

@@ -48,7 +48,7 @@ def test_demo_seeds_once_and_every_lot_rewards_low_losses(cli_env, capsys):
             leaders.add(rows[0]["bidder"])
             excluded += sum(1 for r in rows if not r["compliant"])
         assert len(leaders) == 3
-        assert excluded == 2  # one offer over the utility's cap, one over the EU Tier 1 losses
+        assert excluded == 2  # one offer over the utility's cap, one over the EU Tier 1 losses [from memory]
 
 
 def test_db_upgrade_and_downgrade_commands(cli_env, capsys):

@@ -81,7 +81,7 @@ def test_one_bad_row_stores_nothing_and_names_row_and_column(client):
     assert not staged["can_commit"] and staged["rows_with_errors"] == 1
     full = client.get(f"/api/v1/offer-imports/{staged['id']}").json()
     (bad,) = [r for r in full["rows"] if r["errors"]]
-    assert bad["row"] == 1236 and bad["errors"] == [{"column": "load_loss_w", "message": "must be a number"}]
+    assert bad["row"] == 1236 and bad["errors"] == [{"column": "load_loss_w", "message": "must be a number", "code": ""}]
     r = client.post(f"/api/v1/offer-imports/{staged['id']}/commit")
     assert r.status_code == 422 and "row 1236" in str(r.json())
     assert _offer_count(client, tender) == 0
@@ -150,7 +150,8 @@ def test_limit_tables_are_listed_with_source_and_status(client):
 
 
 def test_doe_compliance_with_interpolation_through_the_api(client):
-    # 10 CFR 431.196 three-phase liquid (2016): 300 kVA 99.27 %, 500 kVA 99.35 %; 400 kVA interpolates to 99.31 %.
+    # 10 CFR 431.196(b) three-phase liquid (2016) [from memory]: 300 kVA 99.27 %, 500 kVA 99.35 %;
+    # 400 kVA interpolates to 99.31 % (linear interpolation between listed ratings, from memory).
     tender = _tender(client, lots=[f.lot(name="US lot", rating_kva=400, limit_tables=["doe-2016"])])
     lot_id = tender["lots"][0]["id"]
     # Efficiency at 50 %: 200 kW / (200 kW + P0 + 0.25 Pk), the load loss stated at 55 C (Subpart K

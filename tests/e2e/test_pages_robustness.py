@@ -212,6 +212,34 @@ def test_the_tornado_names_a_bad_box_and_explains_a_direct_basis(page_client):
     assert "<form" not in tornado and "<form" not in monte_carlo
 
 
+
+def test_the_tornado_says_which_values_it_held_at_the_basis_limits(page_client):
+    # Limits of the cost basis form (server/schemas.py): cooling at most the 8760 hours of a year,
+    # a loss factor at most 1. The default moves the cooling 20 % either way: 8,000 to 9,600 h.
+    lot_id = _lot(page_client, factories.present_worth_basis(cooling_hours_per_year=8000.0, loss_factor=0.9))
+    log_in(page_client)
+    page = page_client.get(f"/lots/{lot_id}/robustness").text
+    text = _text(page)
+    held = text.split("Held at the limits the cost basis allows: ")[1].split(".")[0].split("; ")
+    assert held == ["Loss factor capped at 1", "Responsibility factor capped at 1",
+                    "Cooling in service capped at 8,760 hours a year"]
+    assert "Cooling in service (held at its limit)" in _charts(page)[1]["yAxis"]["data"]
+    # The form's own boxes never offer a value the basis would refuse: 0.9 + 20 % stops at 1.
+    assert 'id="tn-loss_factor_high" name="loss_factor_high" type="text" value="1"' in page
+    query = tornado_defaults({"energy_price_per_kwh": 0.08, "energy_escalation_pct": 2.0, "discount_rate_pct": 6.0,
+                              "years": 30, "peak_load_pu": 0.8, "load_growth_pct": 1.0, "loss_factor": 0.9,
+                              "capacity_cost_per_kw_year": 60.0})
+    typed = page_client.get(f"/lots/{lot_id}/robustness/tornado", headers=HX,
+                            params=query | {"loss_factor_high": "1.5", "discount_rate_pct_low": "-80"})
+    assert typed.status_code == 200
+    words = _text(typed.text)
+    assert "Loss factor capped at 1" in words and "Discount rate raised to just above -50 % a year" in words
+    row = typed.text.split('<th scope="row">Loss factor</th>')[1].split("</tr>")[0]
+    assert "capped at the limit" in row
+    tips = [d["tooltip"]["formatter"] for d in _series(_charts(typed.text)[0], "high")["data"]]
+    assert any(t.startswith("Loss factor (held at its limit) at 1, capped at the highest allowed") for t in tips)
+
+
 # --- Monte Carlo ----------------------------------------------------------------------------------
 
 def test_a_run_started_from_the_page_is_polled_until_its_win_probabilities_show(page_client):
@@ -286,6 +314,28 @@ def test_a_run_form_without_the_token_is_refused_and_bad_boxes_are_named(page_cl
     assert error_beside(bad.text, "mc-discount_rate_pct_sd") == "Must be more than 0."
     assert error_beside(bad.text, "mc-load_growth_pct_high") == "Must be more than the low value."
     assert 'value="0.5"' in bad.text  # what was typed stays
+    assert page_client.get(f"/lots/{lot_id}/robustness").text.count('id="mc-run"></div>') == 1  # no run stored
+
+
+
+def test_a_run_form_names_bounds_outside_the_input_range_in_the_units_of_the_page(page_client):
+    # Limits of the cost basis form (server/schemas.py): a discount rate above -50 %.
+    lot_id = _lot(page_client)
+    csrf = log_in(page_client)
+    bad = page_client.post(f"/lots/{lot_id}/robustness/monte-carlo", headers=HX,
+                           data=_mc_form(csrf, discount_rate_pct_low="-60", years_dist="uniform", years_high="120"))
+    assert bad.status_code == 422
+    assert error_beside(bad.text, "mc-discount_rate_pct_low") == "Must be more than -50 %."
+    assert error_beside(bad.text, "mc-years_high") == "Must be 100 or less."
+    # A refusal only the Monte Carlo itself makes comes back before any run starts, beside the
+    # input's distribution, in words that name no internal field.
+    narrow = _mc_form(csrf, loss_factor_dist="normal", loss_factor_mean="0.3", loss_factor_sd="0.001",
+                      loss_factor_low="0.5", loss_factor_high="0.6")
+    refused = page_client.post(f"/lots/{lot_id}/robustness/monte-carlo", headers=HX, data=narrow)
+    assert refused.status_code == 422
+    message = error_beside(refused.text, "mc-loss_factor_dist")
+    assert message.startswith("Low and high keep less than 0.1 % of this normal distribution")
+    assert "loss_factor" not in _text(refused.text) and "distributions[" not in _text(refused.text)
     assert page_client.get(f"/lots/{lot_id}/robustness").text.count('id="mc-run"></div>') == 1  # no run stored
 
 

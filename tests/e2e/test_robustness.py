@@ -23,6 +23,7 @@ def _lot(client, basis=None):
 
 def _ranking_leader(client, lot_id, basis_id, a, b):
     client.patch(f"/api/v1/cost-bases/{basis_id}", json={"version": client.get(f"/api/v1/cost-bases/{basis_id}").json()["version"],
+                                                         "change_reason": "Try other rates",
                                                          "no_load_rate_per_kw": a, "load_rate_per_kw": b})
     tender_id = client.get(f"/api/v1/lots/{lot_id}").json()["tender_id"]
     tender = client.get(f"/api/v1/tenders/{tender_id}").json()
@@ -172,3 +173,89 @@ def test_a_run_that_lost_its_worker_is_reported_failed(client, db_url):
         engine.dispose()
     state = client.get(f"/api/v1/monte-carlo-runs/{run_id}").json()
     assert state["status"] == "failed" and "start it again" in state["message"]
+
+
+def test_an_exact_tie_has_one_leader_in_the_ranking_break_even_rate_map_tornado_and_monte_carlo(client):
+    # Two offers alike in price and losses tie exactly at any rates. The ranking's tie order
+    # (TOC, price, bidder casefolded, offer id; domain/toc.py) puts "Alpha Works" first although
+    # "beta Transformers" was entered first and has the lower id. Invented offers.
+    basis_id = client.post("/api/v1/cost-bases", json=f.present_worth_basis(name="PW tie")).json()["id"]
+    tender = client.post("/api/v1/tenders", json=f.tender(basis_id, reference=f"T-{basis_id}")).json()
+    lot_id = tender["lots"][0]["id"]
+    ids = {}
+    for bidder, price, p0, pk in [("beta Transformers", 11000, 450, 4300), ("Alpha Works", 11000, 450, 4300),
+                                  ("Lossy", 10000, 650, 4600)]:
+        ids[bidder] = client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(
+            bidder=bidder, unit_price=price, no_load_loss_w=p0, load_loss_w=pk)).json()["id"]
+    alpha, beta = ids["Alpha Works"], ids["beta Transformers"]
+    assert beta < alpha
+
+    # Reference: the ranking API (domain.toc.rank_offers); every tool must name its leader.
+    ranking = client.get(f"/api/v1/lots/{lot_id}/ranking").json()["rows"]
+    assert [r["offer_id"] for r in ranking[:2]] == [alpha, beta]
+    assert ranking[0]["toc_per_unit"] == ranking[1]["toc_per_unit"]
+
+    be = client.get(f"/api/v1/lots/{lot_id}/break-even").json()
+    assert be["leader_offer_id"] == alpha and be["leader_bidder"] == "Alpha Works"
+    assert next(r for r in be["rows"] if r["offer_id"] == beta)["margin_now"] == 0.0
+
+    rate_map = client.post(f"/api/v1/lots/{lot_id}/rate-map", json={"steps": 21}).json()
+    assert rate_map["leader_offer_id"] == alpha
+    assert all(beta not in line for line in rate_map["winners"])  # tied everywhere, first nowhere
+
+    tornado = client.post(f"/api/v1/lots/{lot_id}/tornado", json={}).json()
+    assert (tornado["leader_offer_id"], tornado["runner_up_offer_id"]) == (alpha, beta)
+    assert all(beta not in (r["leader_low_offer_id"], r["leader_high_offer_id"]) for r in tornado["rows"])
+
+    # Zero spread: every draw at the basis, so the leader wins them all.
+    still = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json={"draws": 300, "seed": 2, "inputs": {}}).json()
+    shares = {r["offer_id"]: r["win_probability"] for r in still["rows"]}
+    assert still["leader_offer_id"] == alpha and shares[alpha] == 1.0 and shares[beta] == 0.0
+    assert [r["offer_id"] for r in still["rows"]] == [r["offer_id"] for r in ranking]  # equal shares: ranking order
+    moving = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json={"draws": 2000, "seed": 4, "inputs": {
+        "energy_price_per_kwh": {"dist": "uniform", "low": 0.02, "high": 0.3}}}).json()
+    assert {r["offer_id"]: r["win_probability"] for r in moving["rows"]}[beta] == 0.0
+
+    # The award's default offer, its record and its Monte Carlo name the same leader.
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    assert record["awarded_offer_id"] == alpha and record["decision"]["is_lowest_toc"]
+    assert record["decision"]["next_offer_id"] == beta and record["decision"]["margin_per_unit"] == 0.0
+    assert record["robustness"]["monte_carlo"]["leader_offer_id"] == alpha
+    assert record["robustness"]["break_even"][0]["offer_id"] in (beta, ids["Lossy"])
+
+
+def test_tornado_holds_values_at_the_basis_limits_and_refusals_speak_in_the_api_units(client):
+    # The limits are those of the cost basis schema (server/schemas.py PresentWorthInputs), the
+    # cooling hours also at most the 8760 hours of the year the rates count.
+    lot_id, _ = _lot(client, f.present_worth_basis(name="PW limits", cooling_hours_per_year=8000.0))
+    body = client.post(f"/api/v1/lots/{lot_id}/tornado", json={"ranges": {
+        "loss_factor": [0.2, 1.5], "discount_rate_pct": [-70, 10], "years": [0, 40]}}).json()
+    rows = {r["input"]: r for r in body["rows"]}
+    cooling = rows["cooling_hours_per_year"]  # by default 20 % either way: 6,400 to 9,600
+    assert (cooling["low_value"], cooling["high_value"]) == (pytest.approx(6400), 8760)
+    assert (cooling["low_clipped"], cooling["high_clipped"]) == (False, True)
+    assert rows["loss_factor"]["high_value"] == 1.0 and rows["loss_factor"]["high_clipped"]
+    discount = rows["discount_rate_pct"]
+    assert discount["low_value"] > -50 and discount["low_value"] == pytest.approx(-50) and discount["low_clipped"]
+    assert (rows["years"]["low_value"], rows["years"]["low_clipped"]) == (1, True)
+    assert not any(rows["energy_price_per_kwh"][k] for k in ("low_clipped", "high_clipped"))
+
+    def refusal(response):
+        assert response.status_code == 422, response.text
+        (item,) = response.json()["detail"]
+        return item["loc"][1], item["msg"]
+
+    assert refusal(client.post(f"/api/v1/lots/{lot_id}/tornado", json={"ranges": {"years": [20.5, 40]}})) == (
+        "ranges.years.low", "must be a whole number of years")
+    bad_rate = {"draws": 10, "inputs": {"discount_rate_pct": {"dist": "uniform", "low": -60, "high": 8}}}
+    for path in ("monte-carlo", "monte-carlo-runs"):  # a run is refused at once, not failed later
+        assert refusal(client.post(f"/api/v1/lots/{lot_id}/{path}", json=bad_rate)) == (
+            "inputs.discount_rate_pct.low", "must be more than -50 %")
+    too_high = {"draws": 10, "inputs": {"cooling_hours_per_year": {"dist": "triangular", "low": 7000, "mode": 8000,
+                                                                    "high": 9000}}}
+    assert refusal(client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json=too_high)) == (
+        "inputs.cooling_hours_per_year.high", "must be 8,760 or less")
+    narrow = {"draws": 10, "inputs": {"discount_rate_pct": {"dist": "normal", "mean": 6, "sd": 0.1, "low": 9,
+                                                             "high": 10}}}
+    field, message = refusal(client.post(f"/api/v1/lots/{lot_id}/monte-carlo-runs", json=narrow))
+    assert field == "inputs.discount_rate_pct" and "normal distribution" in message

@@ -344,7 +344,8 @@ def by_rating() -> dict:
 
 def test_an_oversized_old_unit_has_a_positive_npv_recomputed_by_hand():
     # Existing: liquid 1000 kVA from 2000, P0 1900 W, Pk 12000 W, peak 0.2 pu (200 kVA), LsF 0.3.
-    # No growth, sizing at 1.0 pu -> 250 kVA, a unit just meeting EU Tier 2 (P0 270 W, Pk 2350 W).
+    # No growth, sizing at 1.0 pu -> 250 kVA, a unit just meeting EU Tier 2 (P0 270 W, Pk 2350 W;
+    # EU 548/2014 as amended by 2019/1783, Annex I [from memory]).
     fleet = fleet_of([unit(rating_kva=1000.0, year_installed=2000, no_load_loss_w=1900.0, load_loss_w=12000.0,
                            peak_load_pu=0.2, loss_factor=0.3)])
     result = shortlist(
@@ -463,7 +464,8 @@ def test_per_unit_candidates_give_the_same_result_as_the_table_by_rating():
                          candidate_load_loss_w=from_table.candidate_load_loss_w,
                          replacement_cost=from_table.net_cost)
     assert_allclose(per_unit.npv, from_table.npv, rtol=1e-12)
-    # The dry unit (B) takes the dry row: EU Tier 2 dry at its right-sized rating.
+    # The dry unit (B) takes the dry row: EU Tier 2 dry at its right-sized rating (EU 548/2014 as
+    # amended, Annex I [from memory]).
     b_rating = from_table.right_sized_rating_kva[1]
     p0_dry, _ = limit_losses_by_rating(TIER_2_DRY, [b_rating])
     assert from_table.candidate_no_load_loss_w[1] == p0_dry[0]

@@ -22,8 +22,8 @@ from domain.limits import (
 from domain.plausibility import offer_warnings, price_warnings
 from domain.rules import TOLERANCE_RULES
 
-# US DOE 10 CFR 431.196(b)(2), three-phase liquid-immersed, 2016 levels, as listed in
-# REFERENCE.md section 6 (transcribed from the CFR table).
+# US DOE 10 CFR 431.196(b), liquid-immersed, 2016 levels at 50 % load [status: from memory, as the
+# built-in table; the product marks it unverified until a planner checks the CFR text].
 DOE_3PH_LIQUID = {15: 98.65, 30: 98.83, 45: 98.92, 75: 99.03, 112.5: 99.11, 150: 99.16, 225: 99.23,
                   300: 99.27, 500: 99.35, 750: 99.40, 1000: 99.43, 1500: 99.48, 2000: 99.51, 2500: 99.53}
 DOE_1PH_LIQUID = {10: 98.70, 15: 98.82, 25: 98.95, 37.5: 99.05, 50: 99.11, 75: 99.19, 100: 99.25, 167: 99.33,

@@ -35,6 +35,8 @@ from domain.sensitivity import (
     winner_grid,
 )
 
+from server.services.awards import rank_frozen
+
 # Present-worth inputs also used by test_rates.py (invented, typical of a distribution utility).
 BASE = dict(
     energy_price_per_kwh=0.09,
@@ -118,6 +120,141 @@ def test_offer_arrays_are_read_only_copies_and_reject_bad_losses():
     assert caught.value.field == "pk_w"
     with pytest.raises(InvalidInput):
         OfferArrays(offer_ids=[1, 2], prices=[1, 2, 3], p0_w=[1, 1], pk_w=[1, 1], paux_w=[0, 0])
+
+
+# --------------------------------------------------------------------------- exact ties, every tool
+
+
+def _vectorised_direct(inputs):
+    """Rates A, B, C taken straight from the inputs: a Monte Carlo at rates chosen by the test."""
+    return inputs["a"], inputs["b"], inputs["c"]
+
+
+def _price_for_toc(target, p0, pk, paux, rates):
+    """A unit price whose TOC at ``rates`` is ``target`` bit for bit, in the ranking's own
+    arithmetic (total_owning_cost): the exact difference, then nudged by units in the last place."""
+    capitalised = total_owning_cost(0.0, p0, pk, paux, rates).toc_per_unit
+    price = target - capitalised
+    for _ in range(64):
+        if price < 0:
+            return None
+        toc = total_owning_cost(price, p0, pk, paux, rates).toc_per_unit
+        if toc == target:
+            return price
+        price = math.nextafter(price, math.inf if toc < target else -math.inf)
+    return None
+
+
+TIE_NAMES = ["Alpha", "alpha", "ALPHA", "Beta", "beta", "Gamma", "delta", "Delta"]
+
+
+def _tied_case(rng, case):
+    """One lot with two to five offers of exactly equal TOC (as total_owning_cost computes it)
+    and up to two dearer ones; even cases share price and losses, odd ones offset different
+    losses with the price at rates that are not round (so the TOC's last bits depend on the
+    order of the operations). Invented values, whole watts, as tenders state them."""
+    rates = rates_direct(*(float(x) for x in rng.integers(100, 20_000, 3)))
+    ids = rng.choice(np.arange(1, 10_000), size=7, replace=False).tolist()
+    # Above the largest capitalised losses drawn here (20,000/kW on 33.5 kW), so prices stay positive.
+    target = float(rng.integers(700_000, 2_000_000))
+    size = int(rng.integers(2, 6))
+    tied = []
+    price = None
+    while len(tied) < size:
+        if price is None or case % 2:
+            losses = [float(x) for x in (rng.integers(200, 3000), rng.integers(2000, 30_000), rng.integers(0, 500))]
+            price = _price_for_toc(target, *losses, rates)
+        if price is not None:
+            tied.append(OfferLosses(ids[len(tied)], str(rng.choice(TIE_NAMES)), price, *losses))
+    dearer = [
+        OfferLosses(ids[5 + k], f"Dearer {k}", target + float(rng.integers(1, 5000)), *losses)
+        for k in range(int(rng.integers(0, 3)))
+    ]
+    offers = tied + dearer
+    return [offers[k] for k in rng.permutation(len(offers))], rates
+
+
+def test_300_exact_ties_name_the_same_leader_in_every_tool():
+    # Reference: rank_offers (TOC, then unit price, then bidder casefolded, then offer id).
+    # Every tool, fed the offers in a shuffled order, must name its first offer on a tie.
+    rng = np.random.default_rng(2024)
+    for case in range(300):
+        offers, rates = _tied_case(rng, case)
+        a, b, c = rates.no_load_rate_per_kw, rates.load_rate_per_kw, rates.aux_rate_per_kw
+        ranked = rank_offers(offers, rates, 1, 1000.0)
+        assert ranked[0].toc_per_unit == ranked[1].toc_per_unit  # the construction really ties
+        expected = ranked[0].offer_id
+        arrays = OfferArrays.from_offers(offers)
+
+        leader, rivals = split_leader(arrays, rates)
+        assert int(leader.offer_ids[0]) == expected
+        results = break_even(leader, rivals, rates)
+        assert {r.leader_id for r in results} == {expected}
+        assert sum(r.margin_now == 0.0 for r in results) == sum(r.toc_per_unit == ranked[0].toc_per_unit
+                                                               for r in ranked[1:])
+        assert arrays.offer_ids[winner_grid(arrays, [0.0, a], [b], c)[0, 1]] == expected
+
+        base = {"a": a, "b": b, "c": c}
+        rows = tornado(base, {"a": (a, a), "b": (b, b)}, _vectorised_direct, arrays)
+        assert {(r.leader_id_base, r.leader_id_low, r.leader_id_high) for r in rows} == {(expected,) * 3}
+
+        # Zero spread: every draw is at the base rates; the matrix product's rounding must not
+        # hand a draw to another of the tied offers.
+        mc = monte_carlo(arrays, base, {"a": {"dist": "fixed"}}, 17, seed=case, rates_fn=_vectorised_direct)
+        assert mc.base_leader_id == expected
+        assert {o.offer_id: o.win_probability for o in mc.offers}[expected] == 1.0
+
+        # The award ranks its frozen inputs again with the same engine: its default offer is the leader.
+        frozen = {"cost_basis": {"no_load_rate_per_kw": a, "load_rate_per_kw": b, "aux_rate_per_kw": c},
+                  "lot": {"quantity": 1, "rating_kva": 1000.0},
+                  "offers": [{"id": o.offer_id, "bidder": o.bidder, "unit_price": o.unit_price,
+                              "no_load_loss_w": o.no_load_loss_w, "load_loss_w": o.load_loss_w,
+                              "aux_loss_w": o.aux_loss_w} for o in offers]}
+        assert rank_frozen(frozen)[0]["offer_id"] == expected
+
+
+def test_monte_carlo_settles_ties_in_the_ranking_order_while_other_offers_win_some_draws():
+    # Two offers identical but for the bidder's name: they tie in every draw, so the one
+    # rank_offers puts first (casefolded "alpha" before "beta", whatever the ids) takes all
+    # their wins; a third offer with other losses wins the rest (hand reasoning).
+    same = dict(unit_price=100_000.0, no_load_loss_w=1_000.0, load_loss_w=10_000.0, aux_loss_w=100.0)
+    offers = [OfferLosses(1, "beta", **same), OfferLosses(2, "Alpha", **same),
+              OfferLosses(3, "Lean", 104_000.0, 600.0, 9_000.0, 100.0)]
+    result = monte_carlo(OfferArrays.from_offers(offers), BASE, PW_DISTRIBUTIONS, draws=4000, seed=7)
+    shares = {o.offer_id: o.win_probability for o in result.offers}
+    assert shares[1] == 0.0 and 0.0 < shares[2] < 1.0 and shares[2] + shares[3] == 1.0
+    by_id = {o.offer_id: o for o in result.offers}
+    assert by_id[1].toc_p50 == by_id[2].toc_p50 and by_id[1].expected_regret == by_id[2].expected_regret
+
+
+def test_a_tie_that_holds_in_every_draw_goes_to_the_ranking_leader_in_every_draw():
+    # Two offers with the same load loss and no auxiliary loss, priced (by _price_for_toc) to
+    # tie exactly at the fixed no-load rate: price + A P0 / 1000 is then the same float for both,
+    # so they tie bit for bit whatever B is drawn. A third offer wins the draws with B below
+    # 1000/kW. Reference: rank_offers on each draw's rates (caught through rates_fn). Invented
+    # lots; prices are kept near the capitalised losses so that the matrix product's rounding
+    # differs from the ranking's in some of them.
+    rng = np.random.default_rng(40)
+    for lot in range(300):
+        a = float(rng.uniform(100.0, 20_000.0))
+        p0 = sorted(float(x) for x in rng.choice(np.arange(200, 3000), 2, replace=False))
+        pk = float(rng.integers(2000, 5000))
+        tied = [_price_for_toc(70_000.0, loss, pk, 0.0, rates_direct(a, 0.0)) for loss in p0]
+        offers = [OfferLosses(5, "Zeta", tied[0], p0[0], pk), OfferLosses(9, "Alpha", tied[1], p0[1], pk),
+                  OfferLosses(2, "Lean", 69_500.0 - 0.1 * a, 100.0, pk + 500.0)]
+        seen = []
+
+        def rates_fn(inputs):
+            seen.append(np.column_stack([inputs["a"], inputs["b"], inputs["c"]]))
+            return inputs["a"], inputs["b"], inputs["c"]
+
+        spread = {"b": {"dist": "uniform", "low": 0.0, "high": 2000.0}}
+        result = monte_carlo(OfferArrays.from_offers(offers), {"a": a, "b": 1000.0, "c": 0.0}, spread, 10,
+                             seed=lot, rates_fn=rates_fn, workers=1)
+        leaders = [rank_offers(offers, rates_direct(*row), 1, 1000.0)[0].offer_id for row in np.concatenate(seen[1:])]
+        shares = {o.offer_id: o.win_probability for o in result.offers}
+        assert shares == {k: leaders.count(k) / 10 for k in (2, 5, 9)}
+        assert shares[5] == 0.0  # of the tied two, the lower price (more no-load loss) always leads
 
 
 # --------------------------------------------------------------------------- break-even
@@ -459,6 +596,61 @@ def test_tornado_with_present_worth_rates_keeps_years_whole():
         tornado(BASE, {"not_an_input": (0, 1)}, rates_fn, offers)
 
 
+def test_input_range_clips_to_the_nearest_allowed_value():
+    # Definitions (common practice, no source): closed bounds clip to themselves, an open low
+    # bound to the next float above it, whole numbers to the nearest whole number inside.
+    hours = sensitivity.InputRange(0.0, 8760.0)
+    assert (hours.clip(-5.0), hours.clip(9600.0), hours.clip(1500.0)) == (0.0, 8760.0, 1500.0)
+    rate = sensitivity.InputRange(-0.5, 1.0, low_open=True)
+    assert rate.clip(-0.6) == rate.clip(-0.5) == math.nextafter(-0.5, math.inf) and rate.clip(-0.49) == -0.49
+    years = sensitivity.InputRange(1.0, 100.0, whole=True)
+    assert (years.clip(0.0), years.clip(120.0), years.clip(30.0)) == (1.0, 100.0, 30.0)
+    with pytest.raises(InvalidInput):
+        sensitivity.InputRange(1.0, 0.0)
+
+
+# Limits of the cost basis form (server/schemas.py PresentWorthInputs), in fractions.
+FORM_LIMITS = {
+    "cooling_hours_per_year": sensitivity.InputRange(0.0, 8760.0),
+    "loss_factor": sensitivity.InputRange(0.0, 1.0),
+    "discount_rate": sensitivity.InputRange(-0.5, 1.0, low_open=True),
+    "years": sensitivity.InputRange(1.0, 100.0, whole=True),
+}
+
+
+def test_tornado_holds_each_value_inside_its_input_range_and_says_so():
+    # Reference: the same tornado asked at the limits themselves (an independent run through
+    # present_worth_rates_fn, which refuses cooling above 8760 h and more than 100 years).
+    seen = []
+
+    def rates_fn(inputs):
+        seen.append(dict(inputs))
+        return present_worth_rates_fn(inputs)
+
+    offers = _offers((1, 100_000.0, 1000.0, 12_000.0, 300.0), (2, 104_000.0, 900.0, 10_000.0, 200.0))
+    asked = {"cooling_hours_per_year": (-100.0, 10_000.0), "loss_factor": (0.2, 1.4),
+             "discount_rate": (-0.7, 0.1), "years": (0, 120)}
+    rows = {r.input_name: r for r in tornado(BASE, asked, rates_fn, offers, limits=FORM_LIMITS)}
+    at_limits = {"cooling_hours_per_year": (0.0, 8760.0), "loss_factor": (0.2, 1.0),
+                 "discount_rate": (math.nextafter(-0.5, math.inf), 0.1), "years": (1, 100)}
+    plain = {r.input_name: r for r in tornado(BASE, at_limits, present_worth_rates_fn, offers)}
+    for name, (low, high) in at_limits.items():
+        row = rows[name]
+        assert (row.low_value, row.high_value) == (low, high)
+        assert (row.margin_low, row.margin_high) == (plain[name].margin_low, plain[name].margin_high)
+        assert not plain[name].low_clipped and not plain[name].high_clipped
+    assert (rows["cooling_hours_per_year"].low_clipped, rows["cooling_hours_per_year"].high_clipped) == (True, True)
+    assert (rows["loss_factor"].low_clipped, rows["loss_factor"].high_clipped) == (False, True)
+    assert (rows["discount_rate"].low_clipped, rows["discount_rate"].high_clipped) == (True, False)
+    assert (rows["years"].low_clipped, rows["years"].high_clipped) == (True, True)
+    assert all(isinstance(inputs["years"], int) and 1 <= inputs["years"] <= 100 for inputs in seen)
+    assert max(inputs["cooling_hours_per_year"] for inputs in seen) == 8760.0
+    # A fraction of a year is refused, not rounded, even where a limit would apply.
+    with pytest.raises(InvalidInput) as caught:
+        tornado(BASE, {"years": (20.5, 40)}, rates_fn, offers, limits=FORM_LIMITS)
+    assert caught.value.field == "years"
+
+
 # --------------------------------------------------------------------------- Monte Carlo
 
 PW_DISTRIBUTIONS = {
@@ -754,6 +946,22 @@ def test_monte_carlo_rejects_bad_distributions(distributions, field):
     with pytest.raises(InvalidInput) as caught:
         monte_carlo(offers, BASE, distributions, 100, 0)
     assert caught.value.field == field
+
+
+def test_check_distributions_refuses_without_drawing_what_monte_carlo_refuses():
+    # Same cases as test_monte_carlo_rejects_bad_distributions (the reference is monte_carlo itself).
+    offers = OfferArrays.from_offers(FIVE_OFFERS)
+    for distributions in (
+        {"loss_factor": {"dist": "normal", "mean": 0.2, "sd": 0.01, "low": 0.5, "high": 0.6}},
+        {"years": {"dist": "uniform", "low": 20.5, "high": 30}},
+        {"los_factor": {"dist": "fixed"}},
+    ):
+        with pytest.raises(InvalidInput) as expected:
+            monte_carlo(offers, BASE, distributions, 100, 0)
+        with pytest.raises(InvalidInput) as caught:
+            sensitivity.check_distributions(BASE, distributions)
+        assert caught.value.field == expected.value.field
+    sensitivity.check_distributions(BASE, PW_DISTRIBUTIONS)  # accepted as monte_carlo accepts it
 
 
 @pytest.mark.parametrize("draws", [1, 2, 3, 20, 101])
