@@ -40,11 +40,30 @@ def _bearer(request: Request) -> str | None:
     return value.strip() if scheme.lower() == "bearer" and value.strip() else None
 
 
+_DEFAULT_PORTS = {"http": 80, "https": 443}
+
+
+def _origin(url: str) -> tuple[str, str, int | None] | None:
+    """Scheme, host and port of ``url`` (the port left out when it is the scheme's own)."""
+    try:
+        parts = urlsplit(url.strip())
+        port = parts.port
+    except ValueError:
+        return None
+    scheme = parts.scheme.lower()
+    return scheme, (parts.hostname or "").lower(), None if port == _DEFAULT_PORTS.get(scheme) else port
+
+
 def same_origin(request: Request) -> bool:
-    """An Origin (or, failing that, Referer) header must name this very site when present."""
+    """An Origin (or, failing that, Referer) header must name this very site when present:
+    the configured public origin (``LOSSLEDGER_PUBLIC_ORIGIN``, needed behind a proxy that
+    rewrites the Host header), else the host the request was sent to."""
     source = request.headers.get("origin") or request.headers.get("referer")
     if not source:
         return True
+    public = request.app.state.settings.public_origin
+    if public:
+        return _origin(source) == _origin(public)
     parts = urlsplit(source)
     return parts.netloc == request.headers.get("host", request.url.netloc)
 
@@ -62,7 +81,7 @@ async def _check_csrf(request: Request, principal: users.Principal) -> None:
 
 
 async def _resolve(db: Database, settings, token: str | None, kinds: tuple[str, ...]):
-    """The principal and the data generation, read in one round trip (``Database.read_row_async``);
+    """The principal and the data version, read in one round trip (``Database.read_row_async``);
     a session's last-seen time is written at most once a minute."""
     if not token:
         return None, None
@@ -72,7 +91,7 @@ async def _resolve(db: Database, settings, token: str | None, kinds: tuple[str, 
     principal, stale = users.principal_from_row(row, settings, kinds)
     if stale:
         await run_in_threadpool(_touch, db, principal.session_id)
-    return principal, generation.generation_value(row[-2], row[-1])
+    return principal, generation.version_of(row)
 
 
 def _touch(db: Database, session_id: int) -> None:

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import getpass
-import logging
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -13,6 +12,7 @@ from sqlalchemy.orm import Session
 
 from server.settings import get_settings
 from server.storage.models import ROLES
+from server.version import VERSION
 
 
 def _upgrade(url: str) -> None:
@@ -53,6 +53,8 @@ def _seed(url: str) -> None:
 def cmd_serve(args: argparse.Namespace) -> int:
     import uvicorn
 
+    from server.middleware import log_config
+
     settings = get_settings()
     url = settings.database_url
     if settings.env == "production" and url.startswith("sqlite") and args.workers > 1:
@@ -65,10 +67,13 @@ def cmd_serve(args: argparse.Namespace) -> int:
         _seed(url)
     host = args.host or settings.host
     port = args.port or settings.port
-    print(f"LossLedger on http://{host}:{port} (database: {url.split('@')[-1]})")
-    logging.basicConfig(level=logging.INFO, format="%(message)s")  # request logs are JSON lines
+    # On standard error: standard output carries the request logs, one JSON line each.
+    print(f"LossLedger on http://{host}:{port} (database: {url.split('@')[-1]})", file=sys.stderr)
+    # Every worker process applies log_config when it starts (a logging set-up made here would
+    # stay in this process), and believes forwarded addresses from the trusted proxies only.
     uvicorn.run("server.app:create_app", factory=True, host=host, port=port, workers=args.workers,
-                access_log=False)
+                access_log=False, log_config=log_config(), proxy_headers=True,
+                forwarded_allow_ips=settings.trusted_proxies)
     return 0
 
 
@@ -82,8 +87,10 @@ def cmd_db(args: argparse.Namespace) -> int:
         print(f"Backed up the database to {args.file}.")
         return 0
     if args.action == "restore":
-        backup.restore(url, args.file)
-        print(f"Restored the database from {args.file}.")
+        revision = backup.restore(url, args.file)
+        head, _ = backup.known_revisions()
+        later = "" if revision == head else f" Its schema is at revision {revision}: run `lossledger db upgrade`."
+        print(f"Restored the database from {args.file}.{later}")
         return 0
     if args.action == "upgrade":
         _upgrade(url)
@@ -99,6 +106,35 @@ def cmd_demo(_args: argparse.Namespace) -> int:
     if url.startswith("sqlite"):
         _upgrade(url)
     _seed(url)
+    return 0
+
+
+def cmd_worker(args: argparse.Namespace) -> int:
+    """Run queued jobs (Monte Carlo runs) until SIGINT or SIGTERM; running jobs then go back to
+    the queue. On PostgreSQL this is what runs them: web processes do not, unless
+    LOSSLEDGER_JOBS_IN_WEB is set. On SQLite the web process runs them already; a worker beside
+    it on the same host shares the work."""
+    import logging.config
+
+    from server.jobs import make_runner
+    from server.middleware import log_config
+    from server.storage.database import Database
+
+    if args.concurrency is not None and args.concurrency < 1:
+        raise SystemExit("--concurrency must be 1 or more.")
+    settings = get_settings()
+    url = settings.database_url
+    if url.startswith("sqlite"):
+        _upgrade(url)
+    logging.config.dictConfig(log_config())
+    database = Database(url)
+    try:
+        runner = make_runner(database, settings, args.concurrency)
+        print(f"LossLedger worker: up to {runner.concurrency} jobs at once (database: {url.split('@')[-1]})",
+              file=sys.stderr)
+        runner.run()
+    finally:
+        database.dispose()
     return 0
 
 
@@ -141,6 +177,8 @@ def cmd_users(args: argparse.Namespace) -> int:
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="lossledger", description="Transformer tender evaluation by total owning cost.")
+    parser.add_argument("--version", action="version", version=f"lossledger {VERSION}")
+    parser.add_argument("--debug", action="store_true", help="show the full traceback when a command fails")
     sub = parser.add_subparsers(dest="command", required=True)
 
     serve = sub.add_parser("serve", help="run the web application")
@@ -177,12 +215,34 @@ def build_parser() -> argparse.ArgumentParser:
 
     demo = sub.add_parser("demo", help="seed the demo scenario into an empty database")
     demo.set_defaults(func=cmd_demo)
+
+    worker = sub.add_parser("worker", help="run queued jobs (Monte Carlo runs) until stopped")
+    worker.add_argument("--concurrency", type=int, metavar="N",
+                        help="jobs run at once (default LOSSLEDGER_JOB_CONCURRENCY, 2)")
+    worker.set_defaults(func=cmd_worker)
     return parser
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run a command. A failure is one line on standard error and exit status 1 (the whole
+    traceback with ``--debug``)."""
     args = build_parser().parse_args(argv)
-    return args.func(args)
+    try:
+        return args.func(args)
+    except Exception as exc:  # every failure a command meets, said plainly
+        if args.debug:
+            raise
+        print(f"lossledger: error: {_said(exc)}", file=sys.stderr)
+        return 1
+
+
+def _said(exc: Exception) -> str:
+    """An error in one line: a service's own words, else the first line of the exception's."""
+    from server.errors import ServiceError
+
+    text = exc.message if isinstance(exc, ServiceError) else str(exc)
+    first = next((line.strip() for line in text.splitlines() if line.strip()), "")
+    return first or type(exc).__name__
 
 
 if __name__ == "__main__":

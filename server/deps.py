@@ -18,7 +18,7 @@ T = TypeVar("T")
 
 def open_session(request: Request) -> Session:
     """A session for this request. Set by ``server.auth.Requires``, which runs first: who is
-    acting, and the data generation read with the user's session (so a cached result needs
+    acting, and the data version read with the user's session (so a cached result needs
     no query of its own until the session writes)."""
     session = request.app.state.db.sessionmaker()
     actor = getattr(request.state, "actor", None)
@@ -52,7 +52,7 @@ def _close(session: Session) -> None:
 
 
 async def cached(request: Request, cache: GenerationCache, key: Hashable, compute: Callable[[Session], T]) -> T:
-    """``cache``'s result for ``key`` at the data generation the request's authentication read:
+    """``cache``'s result for ``key`` at the data version the request's authentication read:
     a hit is served on the event loop with no session and no I/O; a miss is computed (once,
     however many requests miss together) in a worker thread with its own session."""
     known = getattr(request.state, "generation", None)

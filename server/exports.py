@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import io
+import re
 from collections.abc import Iterable, Sequence
 
 from server import schemas
@@ -75,9 +76,20 @@ def ranking_cells(ranking: schemas.RankingOut) -> list[list[object]]:
     return rows
 
 
+# XML 1.0, and so a workbook, cannot hold these; text stored before they were refused (or
+# arriving by another way) must still export. Each becomes its visible Unicode picture (U+2400
+# onwards: NUL shows as a symbol for NUL), so the reader sees that something was there.
+_NOT_IN_XML = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f]")
+
+
+def xlsx_text(value: str) -> str:
+    """``value`` with every character a workbook cannot hold shown as its control picture."""
+    return _NOT_IN_XML.sub(lambda found: chr(0x2400 + ord(found.group())), value)
+
+
 def _text_cell(cell, value: str) -> None:
     """Store text as text: openpyxl would otherwise turn a leading '=' into a formula."""
-    cell.value = value
+    cell.value = xlsx_text(value)
     cell.data_type = "s"
 
 

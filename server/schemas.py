@@ -5,10 +5,12 @@ Percentages are ``_pct`` here and become fractions when they reach ``domain/``.
 
 from __future__ import annotations
 
+import re
 from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, StringConstraints, ValidationInfo, field_validator, model_validator
+from fastapi import Path, Query
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, StringConstraints, ValidationInfo, field_validator, model_validator
 
 # Upper bounds reject absurd values (a typo of several orders of magnitude), not real units:
 # the largest power transformers are around 1,500 MVA with load losses of a few MW.
@@ -16,11 +18,53 @@ MAX_RATING_KVA = 2_000_000.0
 MAX_LOSS_W = 10_000_000.0
 MAX_PRICE = 1e11
 
-Text = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=200)]
-Name = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=120)]
-Reference = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=64)]
+# Every id is an Integer column, 32 bits on PostgreSQL (64 on SQLite): one range on both
+# engines, so that an id no database row can have is refused (422) before any query is made.
+MAX_ID = 2**31 - 1
+Id = Annotated[int, Field(ge=1, le=MAX_ID)]
+PathId = Annotated[int, Path(ge=1, le=MAX_ID, description="A record's id (1 to 2147483647).")]
+QueryId = Annotated[int, Query(ge=1, le=MAX_ID, description="A record's id (1 to 2147483647).")]
+OptionalQueryId = Annotated[int | None, Query(ge=1, le=MAX_ID, description="A record's id (1 to 2147483647).")]
+
+# Control characters: PostgreSQL cannot store NUL, XML (and so XLSX) cannot hold the other C0
+# characters, and none of them is ever typed on purpose. Tab and line breaks belong in notes.
+CONTROL_CHARACTERS = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
+_LINE_BREAK = re.compile("[\t\n\r]")
+
+
+def _refuse_control(value: str) -> str:
+    found = CONTROL_CHARACTERS.search(value)
+    if found:
+        raise ValueError(f"may not contain control characters (found U+{ord(found.group()):04X})")
+    return value
+
+
+def _one_line(value: str) -> str:
+    found = _LINE_BREAK.search(value) or CONTROL_CHARACTERS.search(value)
+    if found:
+        raise ValueError(f"must be one line without control characters (found U+{ord(found.group()):04X})")
+    return value
+
+
+def _check_text(value: Any) -> None:
+    """Refuse control characters in a value and in whatever strings it holds (keys included)."""
+    if isinstance(value, str):
+        _refuse_control(value)
+    elif isinstance(value, (list, tuple, set, frozenset)):
+        for item in value:
+            if isinstance(item, (str, list, tuple, set, frozenset, dict)):
+                _check_text(item)
+    elif isinstance(value, dict):
+        for key, item in value.items():
+            _check_text(key)
+            _check_text(item)
+
+
+Text = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=200), AfterValidator(_one_line)]
+Name = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=120), AfterValidator(_one_line)]
+Reference = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1, max_length=64), AfterValidator(_one_line)]
 Currency = Annotated[str, StringConstraints(strip_whitespace=True, to_upper=True, pattern=r"^[A-Za-z]{3}$")]
-Notes = Annotated[str, StringConstraints(strip_whitespace=True, max_length=4000)]
+Notes = Annotated[str, StringConstraints(strip_whitespace=True, max_length=4000), AfterValidator(_refuse_control)]
 LossW = Annotated[float, Field(ge=0, le=MAX_LOSS_W)]
 RatePerKw = Annotated[float, Field(ge=0, le=1e7)]
 Pct = Annotated[float, Field(ge=0, le=100)]
@@ -29,9 +73,17 @@ Version = Annotated[int, Field(ge=1, description="The version you read; a stale 
 
 
 class Strict(BaseModel):
-    """Inputs: unknown fields, NaN and infinity are refused."""
+    """Inputs: unknown fields, NaN and infinity are refused, and so are control characters
+    (tab and line breaks aside) in every string of every field, whatever its type says."""
 
     model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
+
+    @field_validator("*", mode="after")
+    @classmethod
+    def _no_control_characters(cls, value: Any) -> Any:
+        # After the field's own validation, so nested models have named their own field first.
+        _check_text(value)
+        return value
 
 
 class Out(BaseModel):
@@ -579,8 +631,18 @@ class EvaluationRecordOut(Out):
 
 class VerificationOut(BaseModel):
     record_id: int
-    hash_matches: bool
+    hash_matches: bool = Field(description="The record's frozen inputs and decision still give its SHA-256.")
+    audit_hash_matches: bool = Field(
+        True, description="The SHA-256 written in the audit trail when the lot was awarded is the same.")
+    signature_matches: bool | None = Field(
+        None, description="The server-key signature checks; null when the record is unsigned or its key is "
+        "not configured here.")
     ranking_matches: bool
+    live_checked: bool = Field(True, description="Whether the live data were compared (only while the award stands).")
+    live_matches: bool = Field(
+        True, description="The stored offers, lot, rates and compliance verdicts still match the frozen ones "
+        "(checked while the award stands; a reopened lot may change).")
+    differences: list[str] = Field(default_factory=list, description="What no longer matches, in words.")
     verified: bool
     sha256: str
     recomputed_sha256: str
@@ -1312,6 +1374,10 @@ class DistributionIn(Strict):
 
 
 class MonteCarloIn(Strict):
+    """A Monte Carlo: its draws, seed and the distributions of the inputs it moves. Computed while
+    the request waits up to the ``max_sync_draws`` setting (20,000 unless set); more draws, up to
+    1,000,000, go on the job queue as a run (``POST /lots/{lot_id}/monte-carlo-runs``)."""
+
     draws: Annotated[int, Field(ge=1, le=1_000_000)] = 10_000
     seed: Annotated[int, Field(ge=0, le=2**63 - 1)] = 1
     inputs: dict[SensitivityInput, DistributionIn] = Field(default_factory=dict)
@@ -1337,11 +1403,18 @@ class MonteCarloOut(BaseModel):
 
 
 class MonteCarloRunOut(BaseModel):
+    """A Monte Carlo run on the job queue. Poll it until ``status`` is no longer queued or running."""
+
     id: int
     lot_id: int
-    status: str
-    progress: float
+    status: Literal["queued", "running", "done", "failed", "cancelled"] = Field(
+        description="queued (waiting for a worker), running, done, failed (``message`` says why) or cancelled. "
+                    "A run whose worker stopped is failed, or queued again when the worker was stopped for a restart.")
+    progress: float = Field(description="Fraction done, 0 to 1, in steps of 0.05 while it runs; 1 once done.")
     message: str
-    created_by: str
+    cancel_requested: bool = Field(description="A cancel was asked; a running run stops at its next batch of draws.")
+    created_by: str = Field(description="Who started it: they, or an admin, may cancel it.")
     created_at: datetime
+    started_at: datetime | None = None
+    finished_at: datetime | None = None
     result: MonteCarloOut | None

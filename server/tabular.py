@@ -12,6 +12,7 @@ from itertools import chain, islice
 from typing import Any
 
 from server.errors import ImportRefused
+from server.schemas import CONTROL_CHARACTERS
 
 MAX_ROWS = 1_100_000
 
@@ -91,6 +92,18 @@ def _present(cell: Any) -> bool:
     return cell is not None and not (isinstance(cell, str) and not cell.strip())
 
 
+def strip_control(text: str) -> str:
+    """``text`` without control characters (tab and line breaks kept).
+
+    Uploaded cells are cleaned, where typed input is refused (``server.schemas``): a spreadsheet
+    carries characters nobody can see in it (pasted from a PDF or another system's export), the
+    preview shows each cell as it will be stored before anything is committed, and a refusal
+    would send someone hunting through a 100,000-row file for an invisible character. Tab and
+    line breaks are ordinary whitespace that every store and export takes.
+    """
+    return CONTROL_CHARACTERS.sub("", text) if CONTROL_CHARACTERS.search(text) else text
+
+
 def _read_csv(content: bytes) -> Iterator[list[str]]:
     try:
         text = content.decode("utf-8-sig")
@@ -98,7 +111,8 @@ def _read_csv(content: bytes) -> Iterator[list[str]]:
         raise ImportRefused(
             "The file is not UTF-8 text.", [{"rows": [], "column": None, "message": f"byte {exc.start} cannot be read"}]
         ) from exc
-    return csv.reader(io.StringIO(text))
+    # One pass over the whole text: the characters removed never separate cells or rows.
+    return csv.reader(io.StringIO(strip_control(text)))
 
 
 def _read_workbook(content: bytes) -> list[list[Any]]:
@@ -106,11 +120,16 @@ def _read_workbook(content: bytes) -> list[list[Any]]:
 
     try:
         workbook = CalamineWorkbook.from_filelike(io.BytesIO(content))
-        return workbook.get_sheet_by_index(0).to_python(skip_empty_area=False)
+        rows = workbook.get_sheet_by_index(0).to_python(skip_empty_area=False)
     except Exception as exc:  # the reader raises several types for a damaged file
         raise ImportRefused(
             "The workbook cannot be read.", [{"rows": [], "column": None, "message": str(exc)[:200]}]
         ) from exc
+    for row in rows:
+        for index, cell in enumerate(row):
+            if type(cell) is str and CONTROL_CHARACTERS.search(cell):
+                row[index] = CONTROL_CHARACTERS.sub("", cell)
+    return rows
 
 
 def rows_text(rows: list[int], limit: int = 12) -> str:

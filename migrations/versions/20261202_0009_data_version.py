@@ -5,6 +5,8 @@ Revises: 0008
 Create Date: 2026-12-02 17:00:00
 
 """
+import secrets
+from datetime import UTC, datetime
 from typing import Sequence, Union
 
 from alembic import op
@@ -18,8 +20,19 @@ depends_on: Union[str, Sequence[str], None] = None
 
 
 def upgrade() -> None:
-    pass
+    table = op.create_table(
+        'data_version',
+        sa.Column('id', sa.Integer(), autoincrement=False, nullable=False),
+        sa.Column('value', sa.BigInteger(), nullable=False),
+        sa.Column('epoch', sa.BigInteger(), nullable=False),
+        sa.Column('changed_at', sa.DateTime(timezone=True), nullable=False),
+        sa.CheckConstraint('id = 1', name=op.f('ck_data_version_single_row')),
+        sa.PrimaryKeyConstraint('id', name=op.f('pk_data_version')),
+    )
+    # The one row. Its epoch is drawn here, so a database made again from nothing never shares
+    # a version with the one it replaced (a cache keyed on it would serve the old one's data).
+    op.bulk_insert(table, [{'id': 1, 'value': 0, 'epoch': secrets.randbits(62), 'changed_at': datetime.now(UTC)}])
 
 
 def downgrade() -> None:
-    pass
+    op.drop_table('data_version')

@@ -28,19 +28,19 @@ def test_analysis(data: schemas.TestAnalysisIn):
 
 @router.post("/lots/{lot_id}/test-certificates", status_code=201, response_model=schemas.CertificateOut,
              dependencies=[BUYER])
-def add_certificate(lot_id: int, data: schemas.CertificateIn, session: SessionDep):
+def add_certificate(lot_id: schemas.PathId, data: schemas.CertificateIn, session: SessionDep):
     """A delivered unit's certificate, checked against the awarded offer's guarantees."""
     return service.certificate_out(service.add_certificate(session, lot_id, data))
 
 
 @router.get("/lots/{lot_id}/test-certificates", response_model=list[schemas.CertificateOut], dependencies=[ANY_ROLE])
-def list_certificates(lot_id: int, session: SessionDep):
+def list_certificates(lot_id: schemas.PathId, session: SessionDep):
     return [service.certificate_out(c) for c in service.list_certificates(session, lot_id)]
 
 
 @router.post("/lots/{lot_id}/test-certificates/import", status_code=201, response_model=list[schemas.CertificateOut],
              dependencies=[BUYER], responses=FILE_REFUSED)
-def import_certificates(lot_id: int, session: SessionDep,
+def import_certificates(lot_id: schemas.PathId, session: SessionDep,
                         file: Annotated[UploadFile, File(description="CSV or XLSX, one certificate per row")]):
     """Many certificates from one file; a file with any bad row stores nothing."""
     return [service.certificate_out(c) for c in
@@ -49,7 +49,7 @@ def import_certificates(lot_id: int, session: SessionDep,
 
 @router.get("/lots/{lot_id}/test-certificates/template.csv", dependencies=[ANY_ROLE], response_class=Response,
             responses={200: {"content": {"text/csv": {}}, "description": "The import file's header row."}})
-def certificate_template_csv(lot_id: int, session: SessionDep):
+def certificate_template_csv(lot_id: schemas.PathId, session: SessionDep):
     """The columns the certificate import accepts, as a CSV header with no rows (an awarded lot only)."""
     return Response(service.template_csv(session, lot_id), media_type="text/csv; charset=utf-8",
                     headers={"Content-Disposition": f'attachment; filename="lot-{lot_id}-certificates.csv"'})
@@ -58,7 +58,7 @@ def certificate_template_csv(lot_id: int, session: SessionDep):
 @router.get("/lots/{lot_id}/test-certificates/template.xlsx", dependencies=[ANY_ROLE], response_class=Response,
             responses={200: {"content": {service.XLSX_MEDIA_TYPE: {}},
                              "description": "The import workbook: the header, and a sheet describing each column."}})
-def certificate_template_xlsx(lot_id: int, session: SessionDep):
+def certificate_template_xlsx(lot_id: schemas.PathId, session: SessionDep):
     """The certificate import's columns as a workbook; the second sheet explains them with invented examples."""
     return Response(service.template_xlsx(session, lot_id), media_type=service.XLSX_MEDIA_TYPE,
                     headers={"Content-Disposition": f'attachment; filename="lot-{lot_id}-certificates.xlsx"'})
@@ -66,7 +66,7 @@ def certificate_template_xlsx(lot_id: int, session: SessionDep):
 
 @router.get("/lots/{lot_id}/test-certificates/summary", response_model=schemas.CertificateSummaryOut,
             dependencies=[ANY_ROLE])
-def certificate_summary(lot_id: int, session: SessionDep):
+def certificate_summary(lot_id: schemas.PathId, session: SessionDep):
     """Units tested, mean and worst deviation per loss, rejected units, and the total penalty of the
     accepted units (a rejected unit is sent back and owes none)."""
     return service.lot_summary(session, lot_id)

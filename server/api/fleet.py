@@ -45,13 +45,13 @@ def import_fleet(
 
 
 @router.get("/imports/{import_id}", response_model=schemas.FleetImportOut, dependencies=[ANY_ROLE])
-def get_import(import_id: int, session: SessionDep):
+def get_import(import_id: schemas.PathId, session: SessionDep):
     return service.import_out(service.get_import(session, import_id))
 
 
 @router.post("/imports/{import_id}/commit", response_model=schemas.FleetImportOut, dependencies=[PLANNER],
              responses=FILE_REFUSED)
-def commit_import(import_id: int, session: SessionDep):
+def commit_import(import_id: schemas.PathId, session: SessionDep):
     """Write the previewed file: every row, or none."""
     return service.import_out(service.commit_import(session, import_id))
 
@@ -70,18 +70,18 @@ def list_units(session: SessionDep, region: str | None = None, site: str | None 
 
 @router.get("/units.csv", dependencies=[ANY_ROLE], response_class=Response,
             responses={200: {"content": {"text/csv": {}}, "description": "Every unit with its annual losses."}})
-def units_csv(cost_basis_id: int, session: SessionDep):
+def units_csv(cost_basis_id: schemas.QueryId, session: SessionDep):
     return _csv(service.units_csv(session, cost_basis_id), "fleet-losses.csv")
 
 
 @router.get("/summary", response_model=schemas.FleetSummaryOut, dependencies=[ANY_ROLE])
-def summary(cost_basis_id: int, session: SessionDep, region: str | None = None):
+def summary(cost_basis_id: schemas.QueryId, session: SessionDep, region: str | None = None):
     """This year's loss energy, loss cost and CO2 of the whole fleet at a cost basis's prices."""
     return service.fleet_summary(session, cost_basis_id, region)
 
 
 @router.get("/groups", response_model=schemas.FleetGroupsOut, dependencies=[ANY_ROLE])
-def groups(cost_basis_id: int, session: SessionDep,
+def groups(cost_basis_id: schemas.QueryId, session: SessionDep,
            by: Annotated[str, Query(description="region, site, rating, vintage or insulation")] = "region"):
     """The same totals by group, largest loss cost first (a Pareto of where the cost sits)."""
     return service.fleet_groups(session, cost_basis_id, by)

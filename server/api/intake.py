@@ -21,7 +21,7 @@ XLSX = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
 
 @router.get("/tenders/{tender_id}/offer-template.csv", dependencies=[ANY_ROLE], tags=["offer import"],
             response_class=Response, responses={200: {"content": {"text/csv": {}}, "description": "Template"}})
-def offer_template(tender_id: int, session: SessionDep):
+def offer_template(tender_id: schemas.PathId, session: SessionDep):
     """The import template: one row per offer per lot, columns named after the offer fields."""
     return Response(offer_imports.template_csv(session, tender_id), media_type="text/csv; charset=utf-8",
                     headers={"Content-Disposition": f'attachment; filename="tender-{tender_id}-offers.csv"'})
@@ -29,7 +29,7 @@ def offer_template(tender_id: int, session: SessionDep):
 
 @router.post("/tenders/{tender_id}/offer-imports", status_code=201, response_model=schemas.OfferImportOut,
              dependencies=[BUYER], tags=["offer import"], responses=FILE_REFUSED)
-def stage_offer_import(tender_id: int, session: SessionDep,
+def stage_offer_import(tender_id: schemas.PathId, session: SessionDep,
                        file: Annotated[UploadFile, File(description="CSV or XLSX with the template's columns")],
                        rows_limit: Annotated[int | None, Query(ge=0)] = None):
     """Upload and check a file: every row with its errors and warnings; nothing is applied yet."""
@@ -39,20 +39,20 @@ def stage_offer_import(tender_id: int, session: SessionDep,
 
 @router.get("/offer-imports/{import_id}", response_model=schemas.OfferImportOut, dependencies=[ANY_ROLE],
             tags=["offer import"])
-def get_offer_import(import_id: int, session: SessionDep, rows_limit: Annotated[int | None, Query(ge=0)] = None):
+def get_offer_import(import_id: schemas.PathId, session: SessionDep, rows_limit: Annotated[int | None, Query(ge=0)] = None):
     return offer_imports.import_out(offer_imports.get_import(session, import_id), rows_limit)
 
 
 @router.post("/offer-imports/{import_id}/commit", response_model=schemas.OfferImportOut, dependencies=[BUYER],
              tags=["offer import"])
-def commit_offer_import(import_id: int, session: SessionDep):
+def commit_offer_import(import_id: schemas.PathId, session: SessionDep):
     """Apply every row of a preview without errors, in one transaction; or nothing."""
     return offer_imports.import_out(offer_imports.commit_import(session, import_id), rows_limit=0)
 
 
 @router.get("/lots/{lot_id}/compliance", response_model=list[schemas.OfferComplianceOut], dependencies=[ANY_ROLE],
             tags=["compliance"])
-def lot_compliance(lot_id: int, session: SessionDep):
+def lot_compliance(lot_id: schemas.PathId, session: SessionDep):
     """Per offer: compliant or not, every rule checked with its limit, value and source, and warnings."""
     return compliance.lot_compliance(session, get_lot(session, lot_id))
 
@@ -119,13 +119,13 @@ def review_limit_table(key: str, data: schemas.TableReviewIn, session: SessionDe
 
 @router.get("/lots/{lot_id}/efficiency-curves", response_model=schemas.EfficiencyCurvesOut, dependencies=[ANY_ROLE],
             tags=["offers and ranking"])
-def efficiency_curves(lot_id: int, session: SessionDep):
+def efficiency_curves(lot_id: schemas.PathId, session: SessionDep):
     """Efficiency of every offer from 0 to 150 % loading, its maximum, and the regulatory points."""
     return lot_efficiency_curves(session, lot_id)
 
 
 @router.get("/lots/{lot_id}/ranking.xlsx", dependencies=[ANY_ROLE], tags=["offers and ranking"],
             response_class=Response, responses={200: {"content": {XLSX: {}}, "description": "The ranking workbook."}})
-def ranking_workbook(lot_id: int, session: SessionDep, include_non_compliant: bool = True):
+def ranking_workbook(lot_id: schemas.PathId, session: SessionDep, include_non_compliant: bool = True):
     return Response(ranking.ranking_workbook(session, lot_id, include_non_compliant), media_type=XLSX,
                     headers={"Content-Disposition": f'attachment; filename="lot-{lot_id}-ranking.xlsx"'})

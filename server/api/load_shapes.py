@@ -42,11 +42,11 @@ def list_load_shapes(session: SessionDep):
 
 
 @router.get("/{shape_id}", response_model=schemas.LoadShapeOut, dependencies=[ANY_ROLE])
-def get_load_shape(shape_id: int, session: SessionDep):
+def get_load_shape(shape_id: schemas.PathId, session: SessionDep):
     return service.load_shape_out(service.get_load_shape(session, shape_id))
 
 
 @router.get("/{shape_id}/values", response_model=schemas.LoadShapeValuesOut, dependencies=[ANY_ROLE])
-def get_load_shape_values(shape_id: int, session: SessionDep):
+def get_load_shape_values(shape_id: schemas.PathId, session: SessionDep):
     """The hourly values and the load duration curve."""
     return service.load_shape_values(service.get_load_shape(session, shape_id))

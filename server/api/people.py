@@ -47,5 +47,5 @@ def create_user(data: schemas.UserCreate, session: SessionDep):
 
 
 @router.patch("/users/{user_id}", response_model=schemas.UserOut, dependencies=[ADMIN])
-def patch_user(user_id: int, patch: schemas.UserPatch, session: SessionDep):
+def patch_user(user_id: schemas.PathId, patch: schemas.UserPatch, session: SessionDep):
     return service.patch_user(session, user_id, patch)

@@ -18,7 +18,7 @@ router = APIRouter()
 def list_audit(
     session: SessionDep,
     object_type: str | None = None,
-    object_id: int | None = None,
+    object_id: schemas.OptionalQueryId = None,
     actor: str | None = None,
     since: datetime | None = None,
     until: datetime | None = None,
@@ -38,7 +38,7 @@ def list_audit(
 def audit_csv(
     session: SessionDep,
     object_type: str | None = None,
-    object_id: int | None = None,
+    object_id: schemas.OptionalQueryId = None,
     actor: str | None = None,
     since: datetime | None = None,
     until: datetime | None = None,
@@ -53,7 +53,7 @@ def audit_csv(
 
 @router.post("/lots/{lot_id}/award", status_code=201, response_model=schemas.EvaluationRecordOut,
              dependencies=[APPROVER], tags=["awards"])
-def award_lot(lot_id: int, data: schemas.AwardIn, session: SessionDep):
+def award_lot(lot_id: schemas.PathId, data: schemas.AwardIn, session: SessionDep):
     """Award the lot; freezes the evaluation and locks the lot.
 
     ``offer_id`` defaults to the lowest total owning cost among compliant offers. Another
@@ -66,25 +66,25 @@ def award_lot(lot_id: int, data: schemas.AwardIn, session: SessionDep):
 
 @router.post("/lots/{lot_id}/reopen", response_model=schemas.EvaluationRecordOut,
              dependencies=[APPROVER], tags=["awards"])
-def reopen_lot(lot_id: int, data: schemas.ReopenIn, session: SessionDep):
+def reopen_lot(lot_id: schemas.PathId, data: schemas.ReopenIn, session: SessionDep):
     """Lift the award so the lot can change again; the reason is kept with the record."""
     return awards.reopen_lot(session, lot_id, data.reason)
 
 
 @router.get("/lots/{lot_id}/evaluation-records", response_model=list[schemas.EvaluationRecordOut],
             dependencies=[ANY_ROLE], tags=["awards"])
-def list_records(lot_id: int, session: SessionDep):
+def list_records(lot_id: schemas.PathId, session: SessionDep):
     return awards.list_records(session, lot_id)
 
 
 @router.get("/evaluation-records/{record_id}", response_model=schemas.EvaluationRecordOut,
             dependencies=[ANY_ROLE], tags=["awards"])
-def get_record(record_id: int, session: SessionDep):
+def get_record(record_id: schemas.PathId, session: SessionDep):
     return awards.get_record(session, record_id)
 
 
 @router.get("/evaluation-records/{record_id}/verification", response_model=schemas.VerificationOut,
             dependencies=[ANY_ROLE], tags=["awards"])
-def verify_record(record_id: int, session: SessionDep):
+def verify_record(record_id: schemas.PathId, session: SessionDep):
     """Recompute the ranking and the SHA-256 from the frozen inputs and compare them."""
-    return awards.verify_record(awards.get_record(session, record_id))
+    return awards.verify_record(session, awards.get_record(session, record_id))

@@ -11,6 +11,7 @@ from fastapi.responses import RedirectResponse
 from pydantic import BaseModel, ConfigDict, Field, StringConstraints, ValidationError, field_validator, model_validator
 from pydantic_core import PydanticCustomError
 
+from server import schemas
 from server.auth import ANY_ROLE
 from server.deps import SessionDep
 from server.pages.forms import field_errors
@@ -32,7 +33,7 @@ class AuditFilter(BaseModel):
     model_config = ConfigDict(extra="ignore")
 
     object_type: str | None = None
-    object_id: Annotated[int, Field(ge=1)] | None = None
+    object_id: Annotated[int, Field(ge=1, le=schemas.MAX_ID)] | None = None
     actor: Annotated[str, StringConstraints(strip_whitespace=True, max_length=64)] | None = None
     since: date | None = None
     until: date | None = None
@@ -108,16 +109,16 @@ def _history(request: Request, session, object_type: str, object_id: int, templa
 
 
 @router.get("/tenders/{tender_id:int}/history", dependencies=[ANY_ROLE])
-def tender_history(request: Request, tender_id: int, session: SessionDep):
+def tender_history(request: Request, tender_id: schemas.PathId, session: SessionDep):
     return _history(request, session, "tender", tender_id, "audit/_history.html")
 
 
 @router.get("/lots/{lot_id:int}/history", dependencies=[ANY_ROLE])
-def lot_history(request: Request, lot_id: int, session: SessionDep):
+def lot_history(request: Request, lot_id: schemas.PathId, session: SessionDep):
     return _history(request, session, "lot", lot_id, "audit/_history.html")
 
 
 @router.get("/offers/{offer_id:int}/history", dependencies=[ANY_ROLE])
-def offer_history(request: Request, offer_id: int, session: SessionDep):
+def offer_history(request: Request, offer_id: schemas.PathId, session: SessionDep):
     """A table row that opens under the offer's own row."""
     return _history(request, session, "offer", offer_id, "audit/_offer_history_row.html")

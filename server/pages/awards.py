@@ -47,11 +47,12 @@ def _refusal(exc: InvalidField) -> dict[str, str]:
 
 
 def _offer_choice(value: str | None) -> int | None:
-    return int(value) if value and value.isdigit() else None
+    # Past the id range is no offer at all, like any other text that is not an id.
+    return int(value) if value and value.isdigit() and int(value) <= schemas.MAX_ID else None
 
 
 @router.get("/lots/{lot_id:int}/award/review", dependencies=[APPROVER])
-def review_award(request: Request, lot_id: int, session: SessionDep, offer_id: str | None = None):
+def review_award(request: Request, lot_id: schemas.PathId, session: SessionDep, offer_id: str | None = None):
     """The confirmation of an award to one offer: its margin, its warnings, the reason box; nothing stored."""
     try:
         context = views.award_confirmation(session, lot_id, _offer_choice(offer_id))
@@ -62,7 +63,7 @@ def review_award(request: Request, lot_id: int, session: SessionDep, offer_id: s
 
 
 @router.post("/lots/{lot_id:int}/award", dependencies=[APPROVER])
-def award_lot(request: Request, lot_id: int, session: SessionDep, form: FormDep):
+def award_lot(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Freeze the evaluation and lock the lot: the chosen offer wins, with its reason and acknowledgements."""
     status = 422
     try:
@@ -90,7 +91,7 @@ def award_lot(request: Request, lot_id: int, session: SessionDep, form: FormDep)
 
 
 @router.post("/lots/{lot_id:int}/reopen", dependencies=[APPROVER])
-def reopen_lot(request: Request, lot_id: int, session: SessionDep, form: FormDep):
+def reopen_lot(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Lift the standing award; the reason stays with the record."""
     try:
         service.reopen_lot(session, lot_id, schemas.ReopenIn.model_validate({"reason": form.get("reason", "")}).reason)
@@ -102,18 +103,18 @@ def reopen_lot(request: Request, lot_id: int, session: SessionDep, form: FormDep
 
 
 @router.get("/evaluation-records/{record_id:int}/report", dependencies=[ANY_ROLE])
-def award_report(request: Request, record_id: int, session: SessionDep):
+def award_report(request: Request, record_id: schemas.PathId, session: SessionDep):
     """A printable report built from the frozen record alone, re-verified as it is shown."""
     record = service.get_record(session, record_id)
-    context = report_view(record, service.verify_record(record)) | {"version_now": VERSION}
+    context = report_view(record, service.verify_record(session, record)) | {"version_now": VERSION}
     return render(request, "awards/report.html", context)
 
 
 @router.get("/evaluation-records/{record_id:int}/verification", dependencies=[ANY_ROLE])
-def verify_record(request: Request, record_id: int, session: SessionDep):
+def verify_record(request: Request, record_id: schemas.PathId, session: SessionDep):
     """Recompute the hash and the ranking now; htmx shows the result in place."""
     if not is_htmx(request):
         return RedirectResponse(f"/evaluation-records/{record_id}/report#verification", status_code=303)
     record = service.get_record(session, record_id)
-    context: dict[str, Any] = {"verification": service.verify_record(record), "version_now": VERSION}
+    context: dict[str, Any] = {"verification": service.verify_record(session, record), "version_now": VERSION}
     return render(request, "awards/_verification.html", context)

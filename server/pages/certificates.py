@@ -25,7 +25,7 @@ router = APIRouter()
 
 
 @router.get("/lots/{lot_id:int}/certificates", dependencies=[ANY_ROLE])
-def certificates(request: Request, lot_id: int, session: SessionDep, entered: str | None = None,
+def certificates(request: Request, lot_id: schemas.PathId, session: SessionDep, entered: str | None = None,
                  imported: int | None = None):
     context = certificate_views.certificates_page(session, lot_id)
     context["entered"] = next((c for c in context["certificates"] if c.serial_number == entered), None)
@@ -34,7 +34,7 @@ def certificates(request: Request, lot_id: int, session: SessionDep, entered: st
 
 
 @router.post("/lots/{lot_id:int}/certificates", dependencies=[BUYER])
-def enter_certificate(request: Request, lot_id: int, session: SessionDep, form: FormDep):
+def enter_certificate(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
     """One unit's certificate from the readings typed; a bad box gets its message beside it."""
     try:
         data = schemas.CertificateIn.model_validate(certificate_views.certificate_data(form))
@@ -51,7 +51,7 @@ def enter_certificate(request: Request, lot_id: int, session: SessionDep, form: 
 
 
 @router.post("/lots/{lot_id:int}/certificates/import", dependencies=[BUYER])
-def import_certificates(request: Request, lot_id: int, session: SessionDep, upload: UploadDep):
+def import_certificates(request: Request, lot_id: schemas.PathId, session: SessionDep, upload: UploadDep):
     """Many certificates from one file: every row is checked, and any problem stores none."""
     try:
         if upload is None:
@@ -70,7 +70,7 @@ def _tender_page(session, tender_id: int, **extra: Any) -> dict[str, Any]:
 
 
 @router.post("/tenders/{tender_id:int}/contract-terms", dependencies=[BUYER])
-def save_contract_terms(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+def save_contract_terms(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep):
     """The tolerance standard and penalty terms, saved against the tender's version."""
     conflict, status = None, 422
     try:

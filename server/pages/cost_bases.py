@@ -73,7 +73,7 @@ def preview_rates(request: Request, form: FormDep):
 
 
 @router.get("/cost-bases/{cost_basis_id:int}", dependencies=[ANY_ROLE])
-def cost_basis_detail(request: Request, cost_basis_id: int, session: SessionDep, saved: int | None = None):
+def cost_basis_detail(request: Request, cost_basis_id: schemas.PathId, session: SessionDep, saved: int | None = None):
     """The editor; htmx asks here for another method's boxes, keeping what was typed."""
     context = views.cost_basis_detail(session, cost_basis_id)
     typed = dict(request.query_params)
@@ -85,7 +85,7 @@ def cost_basis_detail(request: Request, cost_basis_id: int, session: SessionDep,
 
 
 @router.post("/cost-bases/{cost_basis_id:int}", dependencies=[PLANNER])
-def revise_cost_basis(request: Request, cost_basis_id: int, session: SessionDep, form: FormDep):
+def revise_cost_basis(request: Request, cost_basis_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Save: changed inputs make a new revision; a stale version saves nothing."""
     conflict = None
     try:

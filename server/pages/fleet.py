@@ -26,7 +26,7 @@ def _query(request: Request) -> dict[str, str]:
 
 
 @router.get("/fleet", dependencies=[ANY_ROLE])
-def fleet(request: Request, session: SessionDep, imported: int | None = None):
+def fleet(request: Request, session: SessionDep, imported: schemas.OptionalQueryId = None):
     """The view is a GET form: a chosen basis, grouping and loading limits are an address to share.
     A basis without energy prices (direct rates) is answered with its reason, as the API's 422."""
     query = _query(request)
@@ -58,13 +58,13 @@ def upload_fleet(request: Request, session: SessionDep, form: FormDep, upload: U
 
 
 @router.get("/fleet/imports/{import_id:int}", dependencies=[ANY_ROLE])
-def fleet_import(request: Request, import_id: int, session: SessionDep):
+def fleet_import(request: Request, import_id: schemas.PathId, session: SessionDep):
     """The preview: counts over every row, and each problem with its rows and column."""
     return render(request, "fleet/import.html", fleet_views.import_preview(session, import_id))
 
 
 @router.post("/fleet/imports/{import_id:int}/commit", dependencies=[PLANNER])
-def commit_fleet_import(request: Request, import_id: int, session: SessionDep):
+def commit_fleet_import(request: Request, import_id: schemas.PathId, session: SessionDep):
     """Write every row at once and go to the fleet; a preview with problems writes nothing."""
     try:
         service.commit_import(session, import_id)

@@ -52,7 +52,7 @@ def _tender_page(session, tender_id: int, **extra: Any) -> dict[str, Any]:
 
 
 @router.post("/tenders/{tender_id:int}/offer-imports", dependencies=[BUYER])
-def upload_offers(request: Request, tender_id: int, session: SessionDep, upload: UploadDep):
+def upload_offers(request: Request, tender_id: schemas.PathId, session: SessionDep, upload: UploadDep):
     """Check every row of the file and show the preview; nothing is applied yet."""
     try:
         if upload is None:
@@ -130,14 +130,14 @@ def preview_view(session, import_id: int, problems_only: bool) -> dict[str, Any]
 
 
 @router.get("/offer-imports/{import_id:int}", dependencies=[ANY_ROLE])
-def offer_import(request: Request, import_id: int, session: SessionDep, problems: bool = False):
+def offer_import(request: Request, import_id: schemas.PathId, session: SessionDep, problems: bool = False):
     """The preview: counts over every row, then the rows (all, or those with problems)."""
     context = preview_view(session, import_id, problems)
     return page_or_partial(request, "imports/detail.html", "imports/_rows.html", context)
 
 
 @router.post("/offer-imports/{import_id:int}/commit", dependencies=[BUYER])
-def commit_offer_import(request: Request, import_id: int, session: SessionDep):
+def commit_offer_import(request: Request, import_id: schemas.PathId, session: SessionDep):
     """Apply every row at once and go back to the tender; a preview with errors applies nothing."""
     try:
         staged = offer_imports.commit_import(session, import_id)
@@ -203,7 +203,7 @@ def _currency_patch(form: FormValues) -> dict[str, Any]:
 
 
 @router.post("/tenders/{tender_id:int}/currencies", dependencies=[BUYER])
-def save_currencies(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+def save_currencies(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep):
     """The bid opening date and the exchange rates fixed at it, saved against the tender's version."""
     conflict, status = None, 422
     try:
@@ -234,7 +234,7 @@ def save_currencies(request: Request, tender_id: int, session: SessionDep, form:
 # --- the lot page's compliance and efficiency sections ---------------------------------------
 
 @router.post("/lots/{lot_id:int}/limit-tables", dependencies=[BUYER])
-def save_lot_tables(request: Request, lot_id: int, session: SessionDep, form: FormDep, lists: FormListsDep):
+def save_lot_tables(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep, lists: FormListsDep):
     """The limit tables a lot names, saved against the lot's version; the whole page follows,
     since the ranking, the compliance and the chart all change."""
     try:
@@ -254,7 +254,7 @@ def save_lot_tables(request: Request, lot_id: int, session: SessionDep, form: Fo
 
 
 @router.get("/lots/{lot_id:int}/compliance", dependencies=[ANY_ROLE])
-def lot_compliance(request: Request, lot_id: int, session: SessionDep):
+def lot_compliance(request: Request, lot_id: schemas.PathId, session: SessionDep):
     """The compliance section alone, fetched again by htmx whenever an offer changes."""
     if not is_htmx(request):
         return RedirectResponse(f"/lots/{lot_id}#compliance", status_code=303)
@@ -262,7 +262,7 @@ def lot_compliance(request: Request, lot_id: int, session: SessionDep):
 
 
 @router.get("/lots/{lot_id:int}/curves", dependencies=[ANY_ROLE])
-def lot_curves(request: Request, lot_id: int, session: SessionDep):
+def lot_curves(request: Request, lot_id: schemas.PathId, session: SessionDep):
     """The efficiency chart alone, fetched again by htmx whenever an offer changes."""
     if not is_htmx(request):
         return RedirectResponse(f"/lots/{lot_id}#curves", status_code=303)

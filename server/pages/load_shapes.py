@@ -102,5 +102,5 @@ def import_shape(request: Request, session: SessionDep, upload: UploadDep):
 
 
 @router.get("/load-shapes/{shape_id:int}", dependencies=[ANY_ROLE])
-def shape_detail(request: Request, shape_id: int, session: SessionDep):
+def shape_detail(request: Request, shape_id: schemas.PathId, session: SessionDep):
     return render(request, "load_shapes/detail.html", views.shape_detail(session, shape_id))

@@ -20,7 +20,7 @@ LOADING_FIELDS = ["load_shape_id", "peak_load_pu", "load_growth_pct"]
 
 
 @router.post("/lots/{lot_id:int}/loading", dependencies=[BUYER])
-def save_loading(request: Request, lot_id: int, session: SessionDep, form: FormDep):
+def save_loading(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Save the lot's loading against the version in the form; an empty box means the basis's."""
     conflict = None
     try:

@@ -20,13 +20,13 @@ router = APIRouter()
 
 
 @router.get("/lots/{lot_id:int}", dependencies=[ANY_ROLE])
-async def lot_detail(request: Request, lot_id: int, include_non_compliant: bool = False):
+async def lot_detail(request: Request, lot_id: schemas.PathId, include_non_compliant: bool = False):
     return await cached_page(request, ("lot", lot_id, include_non_compliant), lambda session: render(
         request, "lots/detail.html", views.lot_detail(session, lot_id, include_non_compliant)))
 
 
 @router.get("/lots/{lot_id:int}/ranking", dependencies=[ANY_ROLE])
-def lot_ranking(request: Request, lot_id: int, session: SessionDep, include_non_compliant: bool = False):
+def lot_ranking(request: Request, lot_id: schemas.PathId, session: SessionDep, include_non_compliant: bool = False):
     """The ranking section alone, fetched again by htmx whenever an offer changes (and with the
     non-compliant offers listed after the ranked ones when asked)."""
     if not is_htmx(request):
@@ -36,7 +36,7 @@ def lot_ranking(request: Request, lot_id: int, session: SessionDep, include_non_
 
 
 @router.post("/lots/{lot_id:int}/offers", dependencies=[BUYER])
-def add_offer(request: Request, lot_id: int, session: SessionDep, form: FormDep):
+def add_offer(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
     try:
         service.add_offer(session, lot_id, schemas.OfferCreate.model_validate(create_data(form, schemas.OfferCreate)))
     except ValidationError as exc:
@@ -53,7 +53,7 @@ def add_offer(request: Request, lot_id: int, session: SessionDep, form: FormDep)
 
 
 @router.get("/offers/{offer_id:int}", dependencies=[ANY_ROLE])
-def offer_row(request: Request, offer_id: int, session: SessionDep):
+def offer_row(request: Request, offer_id: schemas.PathId, session: SessionDep):
     """One offer as a table row (htmx swaps it back in when an edit is cancelled)."""
     context = views.offer_row(session, offer_id)
     if not is_htmx(request):
@@ -62,13 +62,13 @@ def offer_row(request: Request, offer_id: int, session: SessionDep):
 
 
 @router.get("/offers/{offer_id:int}/edit", dependencies=[BUYER])
-def edit_offer_form(request: Request, offer_id: int, session: SessionDep):
+def edit_offer_form(request: Request, offer_id: schemas.PathId, session: SessionDep):
     context = views.offer_edit(session, offer_id)
     return page_or_partial(request, "lots/detail.html", "lots/_offer_edit_row.html", context)
 
 
 @router.post("/offers/{offer_id:int}", dependencies=[BUYER])
-def save_offer(request: Request, offer_id: int, session: SessionDep, form: FormDep):
+def save_offer(request: Request, offer_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Save an edit made against the version in the form; a stale version changes nothing."""
     conflict = None
     try:
@@ -91,7 +91,7 @@ def save_offer(request: Request, offer_id: int, session: SessionDep, form: FormD
 
 
 @router.post("/offers/{offer_id:int}/delete", dependencies=[BUYER])
-def delete_offer(request: Request, offer_id: int, session: SessionDep):
+def delete_offer(request: Request, offer_id: schemas.PathId, session: SessionDep):
     lot_id = views.offer_row(session, offer_id)["offer"].lot_id
     service.delete_offer(session, offer_id)
     if not is_htmx(request):

@@ -1,9 +1,9 @@
-"""Whole rendered pages kept per data generation, with the viewer's own bits put in per request.
+"""Whole rendered pages kept per data version, with the viewer's own bits put in per request.
 
 A page is rendered once for a set of roles with placeholders for the user name and the form
-token, then served to every viewer with those roles until the data generation moves
+token, then served to every viewer with those roles until the data version moves
 (``server.storage.generation``). Reading a lot page then costs no query of its own (the
-generation comes with the user's session, see ``server.auth``) and a replace.
+version comes with the user's session, see ``server.auth``) and a replace.
 """
 
 from __future__ import annotations
@@ -31,7 +31,7 @@ _PAGES = GenerationCache(size=128)
 
 async def cached_page(request: Request, key: tuple, render: Callable[[Session], HTMLResponse]) -> HTMLResponse:
     """The page for ``key`` (rendered from the session ``render`` is given), rendered in a worker
-    thread only when this generation has not been rendered yet for the viewer's roles; a hit
+    thread only when this data version has not been rendered yet for the viewer's roles; a hit
     is served on the event loop with no I/O (``server.deps.cached``)."""
     principal = request.state.principal  # set by server.auth.Requires
     roles = tuple(sorted(principal.roles))

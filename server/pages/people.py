@@ -67,7 +67,7 @@ def create_user(request: Request, session: SessionDep, form: FormDep, lists: For
 
 
 @router.post("/users/{user_id:int}", dependencies=[ADMIN])
-def change_user(request: Request, user_id: int, session: SessionDep, form: FormDep, lists: FormListsDep):
+def change_user(request: Request, user_id: schemas.PathId, session: SessionDep, form: FormDep, lists: FormListsDep):
     """Roles, disable or enable, or a new password (which ends the user's sessions)."""
     acting = request.state.principal.user_id
     try:

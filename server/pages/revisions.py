@@ -26,7 +26,7 @@ def _basis(session, cost_basis_id: int) -> dict[str, Any]:
 
 
 @router.get("/cost-bases/{cost_basis_id:int}/revisions/compare", dependencies=[ANY_ROLE])
-def compare_revisions(request: Request, cost_basis_id: int, session: SessionDep):
+def compare_revisions(request: Request, cost_basis_id: schemas.PathId, session: SessionDep):
     """What changed between two revisions; htmx shows it under the revisions, a browser on its own page."""
     context = _basis(session, cost_basis_id)
     basis = context["basis"]
@@ -42,7 +42,7 @@ def compare_revisions(request: Request, cost_basis_id: int, session: SessionDep)
 
 
 @router.get("/cost-bases/{cost_basis_id:int}/revisions/{revision:int}/preview", dependencies=[ANY_ROLE])
-def preview_revision(request: Request, cost_basis_id: int, revision: int, session: SessionDep):
+def preview_revision(request: Request, cost_basis_id: schemas.PathId, revision: schemas.PathId, session: SessionDep):
     """Every open lot on this basis ranked under the revision, beside its ranking now; nothing is stored."""
     preview = service.preview_revision(session, cost_basis_id, revision)
     context = _basis(session, cost_basis_id)
@@ -55,7 +55,7 @@ def preview_revision(request: Request, cost_basis_id: int, revision: int, sessio
 
 
 @router.get("/cost-bases/{cost_basis_id:int}/revisions/{revision:int}/workings", dependencies=[ANY_ROLE])
-def revision_workings(request: Request, cost_basis_id: int, revision: int, session: SessionDep):
+def revision_workings(request: Request, cost_basis_id: schemas.PathId, revision: schemas.PathId, session: SessionDep):
     """How the revision's rates were made: inputs, every term and the year-by-year table."""
     out = service.workings(session, cost_basis_id, revision)
     return render(request, "cost_bases/workings.html", {
@@ -68,7 +68,7 @@ def revision_workings(request: Request, cost_basis_id: int, revision: int, sessi
 
 
 @router.post("/tenders/{tender_id:int}/revision", dependencies=[BUYER])
-def move_tender(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+def move_tender(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Move the tender to another revision of its basis: an audited tender edit that re-prices the open lots
     (an awarded lot keeps the revision of its award)."""
     status = 422

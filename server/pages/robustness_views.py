@@ -281,14 +281,15 @@ def run_inputs(request: dict[str, Any], wording: dict[str, tuple[str, str]]) -> 
 
 
 def run_context(view: pages_robustness.RunView | None) -> dict[str, Any]:
-    """A Monte Carlo run as its partial shows it: progress while it runs, the results and charts once done."""
-    context: dict[str, Any] = {"run": None, "run_currency": "", "run_draws": None, "cancelling": False,
-                               "win_chart": None, "band_chart": None, "run_inputs": []}
+    """A Monte Carlo run as its partial shows it: its place in the queue while it waits, progress while it runs,
+    the results and charts once done."""
+    context: dict[str, Any] = {"run": None, "run_currency": "", "run_draws": None, "run_ahead": 0, "cancelling": False,
+                               "win_chart": None, "band_chart": None, "run_inputs": [], "send_start": False}
     if view is None:
         return context
     run = view.run
     context |= {"run": run, "run_currency": view.currency, "run_draws": view.request.get("draws"),
-                "cancelling": view.cancel_requested,
+                "run_ahead": view.ahead, "cancelling": view.cancel_requested,
                 "run_inputs": run_inputs(view.request, input_wording(view.currency))}
     if run.result is not None:
         context["win_chart"] = win_probability_chart(run.result)

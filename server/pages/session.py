@@ -45,8 +45,10 @@ def log_in(request: Request, session: SessionDep, form: FormDep):
             session, settings, form.get("username", ""), form.get("password", ""), client_address(request), old_token
         )
     except LoginRefused as exc:
-        # The service's own words: a lock-out says so and for how long.
-        context = {"form": {"username": form.get("username", ""), "next": target}, "error": exc.message}
+        # The service's own words: a lock-out says so and for how long. The name goes back into
+        # the box only as far as a user name can be long, however much was typed.
+        typed = form.get("username", "")[:users.MAX_NAME_CHARS]
+        context = {"form": {"username": typed, "next": target}, "error": exc.message}
         return render(request, "login.html", context, status_code=401)
     response = RedirectResponse(target, status_code=303)
     response.set_cookie(

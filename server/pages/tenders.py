@@ -63,7 +63,7 @@ def create_tender(request: Request, session: SessionDep, form: FormDep, lists: F
 
 
 @router.get("/tenders/{tender_id:int}", dependencies=[ANY_ROLE])
-def tender_detail(request: Request, tender_id: int, session: SessionDep, saved: bool = False,
+def tender_detail(request: Request, tender_id: schemas.PathId, session: SessionDep, saved: bool = False,
                   imported: int | None = None):
     context = views.tender_detail(session, tender_id)
     context |= {"form": views.tender_form(context["tender"]), "saved": saved, "lot_form": views.LOT_DEFAULTS}
@@ -73,7 +73,7 @@ def tender_detail(request: Request, tender_id: int, session: SessionDep, saved: 
 
 
 @router.post("/tenders/{tender_id:int}", dependencies=[BUYER])
-def edit_tender(request: Request, tender_id: int, session: SessionDep, form: FormDep):
+def edit_tender(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Title, status and cost basis (with its revision), saved against the version in the form."""
     conflict = None
     try:
@@ -101,7 +101,7 @@ def edit_tender(request: Request, tender_id: int, session: SessionDep, form: For
 
 
 @router.post("/tenders/{tender_id:int}/lots", dependencies=[BUYER])
-def add_lot(request: Request, tender_id: int, session: SessionDep, form: FormDep, lists: FormListsDep):
+def add_lot(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep, lists: FormListsDep):
     tables = lists.get("limit_tables", [])
     try:
         data = create_data(form, schemas.LotCreate) | {"limit_tables": tables}

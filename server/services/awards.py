@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import hmac
 import json
 import math
 from dataclasses import dataclass, field
@@ -21,8 +22,9 @@ from server.services.ranking import assessed_offers
 from server.services.robustness import award_robustness
 from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
+from server.settings import get_settings
 from server.storage import audit
-from server.storage.models import EvaluationRecord, Lot, utcnow
+from server.storage.models import AuditEvent, EvaluationRecord, Lot, utcnow
 from server.version import VERSION
 
 _OFFER_FIELDS = (
@@ -37,10 +39,20 @@ _LOT_FIELDS = (
 REASON_KINDS = ("delivery", "technical deviation", "clarification", "other")
 
 
+def canonical_json(material: dict[str, Any]) -> bytes:
+    """Data written as canonical JSON: sorted keys, no spaces, UTF-8, no NaN."""
+    text = json.dumps(material, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+    return text.encode("utf-8")
+
+
 def canonical_hash(inputs: dict[str, Any]) -> str:
     """SHA-256 of the inputs written as canonical JSON (sorted keys, no spaces, UTF-8)."""
-    text = json.dumps(inputs, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return hashlib.sha256(canonical_json(inputs)).hexdigest()
+
+
+def seal_signature(material: dict[str, Any], secret: str) -> str:
+    """HMAC-SHA256 of the canonical JSON with a server key: only a holder of the key can make it."""
+    return hmac.new(secret.encode("utf-8"), canonical_json(material), hashlib.sha256).hexdigest()
 
 
 def sealed_material(inputs: dict[str, Any], decision: dict[str, Any] | None) -> dict[str, Any]:
@@ -232,6 +244,12 @@ def award_lot(session: Session, lot_id: int, data: schemas.AwardIn | None = None
     lot = plan.lot
     who = audit.get_actor(session).username
     decision = plan.decision(data, who)
+    material = sealed_material(plan.inputs, decision)
+    keys = get_settings().seal_key_map()
+    key_id = next(iter(keys), None)
+    lot.cost_basis_revision = lot.pricing_revision
+    # Computed before the record is written: the database refuses any later change to it.
+    robustness = award_robustness(session, lot.id)
     record = EvaluationRecord(
         lot=lot,
         awarded_by=who,
@@ -240,12 +258,13 @@ def award_lot(session: Session, lot_id: int, data: schemas.AwardIn | None = None
         inputs=plan.inputs,
         ranking=plan.ranking,
         decision=decision,
-        sha256=canonical_hash(sealed_material(plan.inputs, decision)),
+        robustness=robustness,
+        sha256=canonical_hash(material),
+        seal_key_id=key_id,
+        seal_hmac=seal_signature(material, keys[key_id]) if key_id else None,
     )
-    lot.cost_basis_revision = lot.pricing_revision
     session.add(record)
     session.flush()
-    record.robustness = award_robustness(session, lot.id)
     summary = f"awarded lot '{lot.name}' to {plan.chosen['bidder']} (record {record.id})"
     if not plan.is_lowest:
         summary += f", not the lowest total owning cost ({decision['reason_kind']}: {decision['reason']})"
@@ -299,23 +318,116 @@ def list_records(session: Session, lot_id: int) -> list[EvaluationRecord]:
     )
 
 
-def verify_record(record: EvaluationRecord) -> dict[str, Any]:
-    """Recompute the hash and the ranking from the frozen inputs and compare."""
-    recomputed = canonical_hash(sealed_material(record.inputs, record.decision))
+def verify_record(session: Session, record: EvaluationRecord) -> dict[str, Any]:
+    """Check a record against itself, against the audit trail, and against the live data.
+
+    - the SHA-256 of the frozen inputs and decision, recomputed, against the record's;
+    - the SHA-256 the award wrote in the append-only audit trail, against the recomputed one
+      (a record altered together with its own hash still differs from the trail);
+    - the server-key signature, when the record has one and its key is configured;
+    - ranking the frozen inputs again, against the frozen ranking;
+    - while the award stands (the lot is locked), freezing the live offers, lot, rates and
+      compliance again, against the frozen copy: any difference is a change made around the
+      application, and each is named.
+    """
+    material = sealed_material(record.inputs, record.decision)
+    recomputed = canonical_hash(material)
     hash_ok = recomputed == record.sha256
+    differences: list[str] = []
+    if not hash_ok:
+        differences.append("the frozen inputs or decision no longer give the record's SHA-256")
+    trail = _awarded_hash(session, record)
+    audit_ok = trail is not None and trail == recomputed
+    if trail is None:
+        differences.append("the audit trail holds no award event for this record")
+    elif not audit_ok:
+        differences.append(f"the SHA-256 written in the audit trail at award time was {trail}")
+    signature_ok = _signature_check(record, material)
+    if signature_ok is False:
+        differences.append("the server-key signature does not match the record")
     again = rank_frozen(record.inputs)
     order_ok = [r["offer_id"] for r in again] == [r["offer_id"] for r in record.ranking]
     values_ok = order_ok and all(
         math.isclose(a["toc_per_unit"], b["toc_per_unit"], rel_tol=1e-12, abs_tol=1e-9)
         for a, b in zip(again, record.ranking, strict=True)
     )
+    if not values_ok:
+        differences.append("ranking the frozen inputs again gives another order or other totals")
+    live = live_differences(session, record) if record.reopened_at is None else []
+    differences += live
     return {
         "record_id": record.id,
         "hash_matches": hash_ok,
+        "audit_hash_matches": audit_ok,
+        "signature_matches": signature_ok,
         "ranking_matches": values_ok,
-        "verified": hash_ok and values_ok,
+        "live_checked": record.reopened_at is None,
+        "live_matches": not live,
+        "differences": differences,
+        "verified": hash_ok and audit_ok and values_ok and signature_ok is not False and not live,
         "sha256": record.sha256,
         "recomputed_sha256": recomputed,
     }
 
 
+def _awarded_hash(session: Session, record: EvaluationRecord) -> str | None:
+    """The SHA-256 the award of ``record`` wrote in the audit trail, or None."""
+    events = session.scalars(select(AuditEvent).where(
+        AuditEvent.action == "award", AuditEvent.object_type == "lot", AuditEvent.object_id == record.lot_id))
+    for event in events:
+        after = event.after or {}
+        if after.get("evaluation_record") == record.id:
+            return after.get("sha256")
+    return None
+
+
+def _signature_check(record: EvaluationRecord, material: dict[str, Any]) -> bool | None:
+    if not record.seal_hmac:
+        return None
+    secret = get_settings().seal_key_map().get(record.seal_key_id or "")
+    if secret is None:
+        return None  # signed with a key this server does not hold: nothing to check it with
+    return hmac.compare_digest(seal_signature(material, secret), record.seal_hmac)
+
+
+def _differs(then: Any, now: Any) -> bool:
+    if isinstance(then, int | float) and isinstance(now, int | float) and not isinstance(then, bool):
+        return not math.isclose(then, now, rel_tol=1e-9, abs_tol=1e-9)
+    return then != now
+
+
+def live_differences(session: Session, record: EvaluationRecord) -> list[str]:
+    """What in the live offers, lot, rates and compliance differs from the record's frozen copy.
+
+    Only what the record froze is compared (a record from an older version has fewer fields);
+    warnings are left out, as a newer version may word or add them.
+    """
+    frozen = record.inputs
+    now = freeze_inputs(session, record.lot)
+    out = []
+    for name, value in frozen["lot"].items():
+        if name in now["lot"] and _differs(value, now["lot"][name]):
+            out.append(f"lot {name}: {value!r} in the record, {now['lot'][name]!r} now")
+    for name in ("currency", "exchange_rates"):
+        if _differs(frozen["tender"].get(name), now["tender"].get(name)):
+            out.append(f"tender {name}: {frozen['tender'].get(name)!r} in the record, {now['tender'].get(name)!r} now")
+    basis_then, basis_now = frozen["cost_basis"], now["cost_basis"]
+    for name in ("id", "revision", "method", "inputs", "no_load_rate_per_kw", "load_rate_per_kw", "aux_rate_per_kw"):
+        if name in basis_then and _differs(basis_then[name], basis_now.get(name)):
+            out.append(f"cost basis {name}: {basis_then[name]!r} in the record, {basis_now.get(name)!r} now")
+    offers_now = {o["id"]: o for o in now["offers"]}
+    for offer in frozen["offers"]:
+        live = offers_now.pop(offer["id"], None)
+        label = f"offer {offer['id']} ({offer['bidder']})"
+        if live is None:
+            out.append(f"{label}: in the record, no longer stored")
+            continue
+        for name in (*_OFFER_FIELDS, "currency", "price_in_tender_currency", "compliant"):
+            if name in offer and _differs(offer[name], live.get(name)):
+                what = "compliance" if name == "compliant" else name
+                then_text = ("compliant" if offer[name] else "not compliant") if name == "compliant" else repr(offer[name])
+                now_text = ("compliant" if live[name] else "not compliant") if name == "compliant" else repr(live.get(name))
+                out.append(f"{label}: {what} {then_text} in the record, {now_text} now")
+    for offer in offers_now.values():
+        out.append(f"offer {offer['id']} ({offer['bidder']}): stored now, not in the record")
+    return out

@@ -12,7 +12,7 @@ from itertools import compress
 from typing import Any
 
 import numpy as np
-from sqlalchemy import func, select
+from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
 from domain.errors import InvalidInput
@@ -34,10 +34,10 @@ from domain.fleet import (
 from server import schemas
 from server.errors import Conflict, ImportRefused, InvalidField
 from server.exports import write_csv
-from server.services.common import commit, get_or_404
+from server.services.common import commit, get_or_404, get_owned_or_404, unique_clash_is_conflict
 from server.services.compliance import all_tables
 from server.services.cost_bases import get_cost_basis, parse_inputs
-from server.storage import audit
+from server.storage import audit, generation
 from server.storage.models import AppDocument, FleetImport, FleetUnit, LoadShape, utcnow
 from server.tabular import gc_paused, read_table_chunks, rows_text
 
@@ -380,26 +380,49 @@ def stage_import(session: Session, filename: str, content: bytes, default_loss_f
                          content=content, summary=summary)
     session.add(staged)
     if commit_now and summary["can_commit"]:
-        _store(session, staged, parsed, existing)
+        with unique_clash_is_conflict(session, "fleet import"):
+            _store(session, staged, parsed, existing)
     else:
         commit(session, "fleet import")
     return staged
 
 
 def get_import(session: Session, import_id: int) -> FleetImport:
-    return get_or_404(session, FleetImport, import_id, "Fleet import")
+    """A staged import, for the user who uploaded it and administrators; 404 for anyone else."""
+    return get_owned_or_404(session, FleetImport, import_id, "Fleet import")
+
+
+def _committed_already(staged: FleetImport) -> Conflict:
+    """409 carrying what the commit that went first did (the import's counts)."""
+    return Conflict(f"Fleet import {staged.id} was committed already.",
+                    current=import_out(staged).model_dump(mode="json"))
 
 
 def commit_import(session: Session, import_id: int) -> FleetImport:
     """Write every row of a staged file (insert new assets, update known ones) in one
-    transaction, or nothing."""
+    transaction, or nothing; once only.
+
+    The file is checked first (the slow part, holding no lock); then one conditional UPDATE
+    marks the import committed in the transaction that writes the units. A second commit at
+    the same moment waits on that row until the first ends, matches nothing and answers 409
+    with the first one's result. A unique clash with units written meanwhile is 409 as well."""
     staged = get_import(session, import_id)
     if staged.committed_at is not None:
-        raise Conflict(f"Fleet import {staged.id} was committed already.")
+        raise _committed_already(staged)
     parsed = parse_inventory(session, staged.filename, staged.content, staged.summary.get("default_loss_factor"))
     if parsed.problems:
         raise ImportRefused("The file has problems; nothing was stored.", parsed.problems)
-    _store(session, staged, parsed, _existing(session))
+    generation.bump(session)  # its lock before the import's row's, the order every writer keeps
+    claimed = session.execute(
+        update(FleetImport).where(FleetImport.id == staged.id, FleetImport.committed_at.is_(None))
+        .values(committed_at=utcnow()).execution_options(synchronize_session=False)
+    ).rowcount
+    if claimed != 1:
+        session.rollback()
+        raise _committed_already(get_or_404(session, FleetImport, staged.id, "Fleet import"))
+    with unique_clash_is_conflict(session, "fleet import"):
+        # The asset ids are read once the import is claimed: they include any commit's before it.
+        _store(session, staged, parsed, _existing(session))
     return staged
 
 
@@ -462,6 +485,9 @@ def bulk_write(session: Session, columns: tuple[str, ...], inserts: list[list], 
     each, which take about half the time of one INSERT per row. Known units are updated with
     one UPDATE each on SQLite, and on PostgreSQL from a temporary table filled by COPY.
     """
+    # The ORM's hooks never see these rows: move the data version here, before the first row
+    # is written (the order every writer takes its locks in).
+    generation.bump(session)
     connection = session.connection()
     cursor = connection.connection.driver_connection.cursor()
     try:

@@ -5,18 +5,19 @@ from __future__ import annotations
 from typing import Any
 
 from pydantic import ValidationError
-from sqlalchemy import select
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session
+from sqlalchemy.orm.attributes import set_committed_value
 
 from domain.plausibility import offer_warnings, price_warnings
 from server import schemas
 from server.errors import Conflict, ImportRefused, InvalidField
 from server.exports import write_csv
-from server.services.common import commit, get_or_404
+from server.services.common import commit, get_or_404, get_owned_or_404
 from server.services.locks import ensure_open
 from server.services.tenders import get_tender
-from server.storage import audit
-from server.storage.models import Offer, OfferImport, utcnow
+from server.storage import audit, generation
+from server.storage.models import Offer, OfferImport, bidder_key, utcnow
 from server.tabular import read_table
 
 OFFER_FIELDS = (
@@ -61,7 +62,7 @@ def _cell(value: Any) -> Any:
 
 
 def _key(lot_id: int, bidder: str) -> tuple[int, str]:
-    return lot_id, " ".join(bidder.casefold().split())
+    return lot_id, bidder_key(bidder)
 
 
 def _preview(session: Session, tender, header: list[str], data_rows: list[list[Any]]) -> list[dict]:
@@ -169,7 +170,8 @@ def stage_import(session: Session, tender_id: int, filename: str, content: bytes
 
 
 def get_import(session: Session, import_id: int) -> OfferImport:
-    return get_or_404(session, OfferImport, import_id, "Offer import")
+    """A staged import, for the user who uploaded it and administrators; 404 for anyone else."""
+    return get_owned_or_404(session, OfferImport, import_id, "Offer import")
 
 
 def import_out(staged: OfferImport, rows_limit: int | None = None) -> schemas.OfferImportOut:
@@ -187,11 +189,38 @@ def import_out(staged: OfferImport, rows_limit: int | None = None) -> schemas.Of
     )
 
 
+def _committed_already(staged: OfferImport) -> Conflict:
+    """409 carrying what the commit that went first did (the import's counts)."""
+    return Conflict(f"Offer import {staged.id} was committed already.",
+                    current=import_out(staged, rows_limit=0).model_dump(mode="json"))
+
+
+def _claim(session: Session, staged: OfferImport) -> None:
+    """Mark the import committed, if no other commit has: one conditional UPDATE, in the
+    transaction that then writes the offers. A second commit at the same moment waits on the
+    row (PostgreSQL's row lock, SQLite's write lock) until the first ends, then matches nothing."""
+    # The data version's lock first, as every writer takes it (server.storage.generation.bump):
+    # a tender deleted meanwhile takes it before this import's row too, and neither waits in a circle.
+    generation.bump(session)
+    now = utcnow()
+    claimed = session.execute(
+        update(OfferImport).where(OfferImport.id == staged.id, OfferImport.committed_at.is_(None))
+        .values(committed_at=now).execution_options(synchronize_session=False)
+    ).rowcount
+    if claimed != 1:
+        session.rollback()
+        raise _committed_already(get_or_404(session, OfferImport, staged.id, "Offer import"))
+    set_committed_value(staged, "committed_at", now)
+
+
 def commit_import(session: Session, import_id: int) -> OfferImport:
-    """Apply every row of a clean preview in one transaction, or none of them."""
+    """Apply every row of a clean preview in one transaction, or none of them; once only.
+
+    The second of two commits answers 409 with the first one's result, and the database's
+    one-offer-per-bidder-and-lot rule refuses a duplicate whatever writes at the same moment."""
     staged = get_import(session, import_id)
     if staged.committed_at is not None:
-        raise Conflict(f"Offer import {staged.id} was committed already.")
+        raise _committed_already(staged)
     bad = [r["row"] for r in staged.rows if r["errors"]]
     if bad:
         raise InvalidField("rows", f"{len(bad)} rows have errors (first: row {bad[0]}); fix the file and upload it again.")
@@ -201,6 +230,8 @@ def commit_import(session: Session, import_id: int) -> OfferImport:
         if lot_id not in lots:
             raise Conflict("A lot of this import no longer exists; upload the file again.")
         ensure_open(session, lots[lot_id])
+    _claim(session, staged)
+    # Read once the import is claimed, so the offers any earlier commit wrote are seen.
     existing = {
         _key(o.lot_id, o.bidder): o
         for o in session.scalars(select(Offer).where(Offer.lot_id.in_(list(lots))))
@@ -214,7 +245,6 @@ def commit_import(session: Session, import_id: int) -> OfferImport:
             for field in COMPARED:
                 if getattr(current, field) != values.get(field):
                     setattr(current, field, values.get(field))
-    staged.committed_at = utcnow()
     audit.record(session, "import", "tender", tender.id,
                  f"imported {len(staged.rows)} offer rows from {staged.filename} (import {staged.id})")
     commit(session, "offer import")

@@ -10,7 +10,9 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from server import schemas
+from server.services.common import may_see_all
 from server.services.offer_imports import get_import, import_out
+from server.storage import audit
 from server.storage.models import LimitTableReview, OfferImport
 
 
@@ -31,10 +33,12 @@ def import_preview(session: Session, import_id: int, problems_only: bool, limit:
 
 
 def recent_imports(session: Session, tender_id: int, limit: int = 5) -> list[schemas.OfferImportOut]:
-    """A tender's latest uploads, newest first, counts only."""
-    found = session.scalars(
-        select(OfferImport).where(OfferImport.tender_id == tender_id).order_by(OfferImport.id.desc()).limit(limit)
-    )
+    """A tender's latest uploads the viewer may open (their own; every one for an administrator),
+    newest first, counts only."""
+    query = select(OfferImport).where(OfferImport.tender_id == tender_id)
+    if not may_see_all(session):
+        query = query.where(OfferImport.created_by == audit.get_actor(session).username)
+    found = session.scalars(query.order_by(OfferImport.id.desc()).limit(limit))
     return [import_out(staged, rows_limit=0) for staged in found]
 
 

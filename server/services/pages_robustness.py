@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server import schemas
+from server import jobs, schemas
 from server.errors import InvalidField
 from server.services import robustness
 from server.services.tenders import get_lot
@@ -38,18 +38,20 @@ class LotFacts:
 
 @dataclass(frozen=True)
 class RunView:
-    """A Monte Carlo run with what its schema leaves out: the request it ran (its distributions)
-    and whether a cancel was asked; and its lot's currency."""
+    """A Monte Carlo run with what its schema leaves out: the request it ran (its distributions),
+    whether a cancel was asked, how many queued jobs will be taken before it; and its lot's currency."""
 
     run: schemas.MonteCarloRunOut
     request: dict
     cancel_requested: bool
     currency: str
+    ahead: int = 0
 
 
 def _run_view(session: Session, run: MonteCarloRun) -> RunView:
-    return RunView(robustness.run_out(run), dict(run.request), bool(run.cancel_requested),
-                   get_lot(session, run.lot_id).tender.currency)
+    ahead = jobs.ahead_of(session, run.job) if run.job.status == "queued" else 0
+    return RunView(robustness.run_out(run), dict(run.request), bool(run.job.cancel_requested),
+                   get_lot(session, run.lot_id).tender.currency, ahead)
 
 
 @dataclass
@@ -171,6 +173,7 @@ def run_view(session: Session, run_id: int) -> RunView:
     return _run_view(session, robustness.get_run(session, run_id))
 
 
-def cancel_run(session: Session, run_id: int) -> RunView:
-    """``robustness.cancel_run`` (a finished run keeps its final state), as ``run_view`` shows it."""
-    return _run_view(session, robustness.cancel_run(session, run_id))
+def cancel_run(session: Session, run_id: int, username: str, is_admin: bool) -> RunView:
+    """``robustness.cancel_run`` for ``username`` (its owner or an admin only; a finished run keeps
+    its final state), as ``run_view`` shows it."""
+    return _run_view(session, robustness.cancel_run(session, run_id, username, is_admin))

@@ -53,7 +53,7 @@ _RANKINGS = GenerationCache()
 
 
 def lot_ranking(session: Session, lot_id: int, include_non_compliant: bool = False) -> schemas.RankingOut:
-    """The lot's ranking under its tender's cost basis revision (computed once per data generation)."""
+    """The lot's ranking under its tender's cost basis revision (computed once per data version)."""
     return _shared_ranking(session, lot_id, include_non_compliant).model_copy(deep=True)
 
 
@@ -67,7 +67,7 @@ def _shared_ranking(session: Session, lot_id: int, include_non_compliant: bool) 
     return _RANKINGS.get_or_compute(session, ("ranking", lot_id, include_non_compliant), compute)
 
 
-# ``lot_ranking`` as JSON, encoded once per data generation (the API's hot path).
+# ``lot_ranking`` as JSON, encoded once per data version (the API's hot path).
 RANKINGS_JSON = GenerationCache()
 
 

@@ -1,19 +1,20 @@
 """Use cases for how sure a ranking is: break-even rates, the rate map, a tornado of the
-cost basis inputs, and Monte Carlo runs (in the request, or in the background)."""
+cost basis inputs, and Monte Carlo runs (small ones in the request, the others on the job queue,
+``server.jobs``)."""
 
 from __future__ import annotations
 
 import functools
 import math
 import re
-import threading
 import typing
-from datetime import UTC, timedelta
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
 import annotated_types
 import numpy as np
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
 from domain.errors import DomainError, InvalidInput
@@ -34,13 +35,14 @@ from domain.sensitivity import (
     tornado,
     winner_grid,
 )
-from server import schemas
-from server.errors import InvalidField
+from server import jobs, schemas
+from server.errors import InvalidField, ServiceError
 from server.services.common import commit, get_or_404
 from server.services.cost_bases import present_worth_arguments
 from server.services.loading import lot_inputs, lot_rates
 from server.services.ranking import rankable_offers
 from server.services.tenders import get_lot
+from server.settings import get_settings
 from server.storage import audit
 from server.storage.models import MonteCarloRun, utcnow
 
@@ -357,96 +359,102 @@ def _mc_out(ctx: LotContext, result, request: schemas.MonteCarloIn) -> schemas.M
 def lot_monte_carlo(session: Session, lot_id: int, request: schemas.MonteCarloIn, progress=None,
                     should_stop=None) -> schemas.MonteCarloOut:
     """A Monte Carlo of the lot's present-worth inputs (rows as ``_mc_out`` orders them); a draw's
-    exact ties go to the offer the ranking puts first."""
+    exact ties go to the offer the ranking puts first. On ``monte_carlo_threads`` threads."""
     ctx = _context(session, lot_id)
     base = base_inputs(ctx.lot)
     distributions = _check_monte_carlo(base, request)
     result = monte_carlo(ctx.offers, base, distributions, request.draws, request.seed,
-                         progress=progress, should_stop=should_stop)
+                         workers=get_settings().monte_carlo_threads, progress=progress, should_stop=should_stop)
     return _mc_out(ctx, result, request)
 
 
-# --- background runs ---------------------------------------------------------------------------
+def lot_monte_carlo_now(session: Session, lot_id: int, request: schemas.MonteCarloIn) -> schemas.MonteCarloOut:
+    """``lot_monte_carlo`` while the request waits: at most ``max_sync_draws`` draws (InvalidField
+    on ``draws`` beyond, saying to queue it as a run)."""
+    limit = get_settings().max_sync_draws
+    if request.draws > limit:
+        raise InvalidField("draws", f"at most {limit:,} draws are computed while the request waits; queue a "
+                           f"larger run with POST /api/v1/lots/{lot_id}/monte-carlo-runs and poll it for its result.")
+    return lot_monte_carlo(session, lot_id, request)
 
-def start_run(session: Session, database, lot_id: int, request: schemas.MonteCarloIn) -> MonteCarloRun:
-    """Check the request, store the run and start it in a background thread."""
+
+# --- runs on the job queue ---------------------------------------------------------------------
+
+JOB_KIND = "monte_carlo"
+
+
+def start_run(session: Session, lot_id: int, request: schemas.MonteCarloIn) -> MonteCarloRun:
+    """Check the request, store the run and queue its job, in one transaction."""
     ctx = _context(session, lot_id)
-    # Refuse now, not in the background, a basis that cannot be moved or a distribution the
-    # Monte Carlo would refuse.
+    # Refuse now, not in the worker, a basis that cannot be moved or a distribution the Monte
+    # Carlo would refuse.
     _check_monte_carlo(base_inputs(ctx.lot), request)
-    run = MonteCarloRun(lot_id=ctx.lot.id, created_by=audit.get_actor(session).username,
+    owner = audit.get_actor(session).username
+    job_id = jobs.enqueue(session, JOB_KIND, {"lot_id": ctx.lot.id}, owner)
+    run = MonteCarloRun(lot_id=ctx.lot.id, job_id=job_id, created_by=owner, created_at=utcnow(),
                         request=request.model_dump(mode="json"))
     session.add(run)
     commit(session, "Monte Carlo run")
-    threading.Thread(target=_run_in_background, args=(database, run.id), daemon=True,
-                     name=f"monte-carlo-{run.id}").start()
     return run
 
 
-def _run_in_background(database, run_id: int) -> None:
-    with database.session() as session:
-        run = session.get(MonteCarloRun, run_id)
-        request = schemas.MonteCarloIn(**run.request)
-        last = {"written": 0.0}
-
-        def progress(fraction: float) -> None:
-            if fraction - last["written"] >= 0.05:
-                last["written"] = fraction
-                with database.session() as s:
-                    s.get(MonteCarloRun, run_id).progress = fraction
-                    s.commit()
-
-        def should_stop() -> bool:
-            with database.session() as s:
-                return bool(s.get(MonteCarloRun, run_id).cancel_requested)
-
+def run_monte_carlo_job(work: jobs.Work) -> Callable[[Session], None]:
+    """The job of a run: its Monte Carlo, with the job's progress and stop check; the result is
+    written in the transaction that marks the job done."""
+    with work.database.session() as session:
+        run = session.scalars(select(MonteCarloRun).where(MonteCarloRun.job_id == work.job_id)).one_or_none()
+        if run is None:
+            raise jobs.Failed("The run was deleted before it started.")
+        run_id, lot_id, request = run.id, run.lot_id, schemas.MonteCarloIn(**run.request)
         try:
-            out = lot_monte_carlo(session, run.lot_id, request, progress, should_stop)
-            run.status, run.progress, run.result = "done", 1.0, out.model_dump(mode="json")
-        except SimulationCancelled:
-            run.status, run.message = "cancelled", "Cancelled on request."
+            out = lot_monte_carlo(session, lot_id, request, work.report, work.should_stop)
+        except SimulationCancelled as exc:
+            raise jobs.Cancelled from exc
         except InvalidField as exc:
             # Inputs were checked when the run started: what fails here changed since (the lot,
             # its offers, its basis), and the message says it without naming a field.
-            run.status, run.message = "failed", exc.detail
-        except DomainError as exc:
-            run.status, run.message = "failed", str(exc)
-        except Exception as exc:  # a background thread has no caller to raise to
-            run.status, run.message = "failed", f"Unexpected error: {type(exc).__name__}"
-        session.commit()
+            raise jobs.Failed(exc.detail) from exc
+        except (DomainError, ServiceError) as exc:
+            raise jobs.Failed(getattr(exc, "message", None) or str(exc)) from exc
+    result = out.model_dump(mode="json")
 
+    def write(session: Session) -> None:
+        session.execute(update(MonteCarloRun).where(MonteCarloRun.id == run_id).values(result=result))
 
-# A run still "running" after this long lost its worker (a restart, a crash): it is marked failed.
-STALE_RUN = timedelta(minutes=30)
+    return write
 
 
 def get_run(session: Session, run_id: int) -> MonteCarloRun:
+    """A run, its job's state checked (one whose worker is gone is failed now)."""
     run = get_or_404(session, MonteCarloRun, run_id, "Monte Carlo run")
-    started = run.created_at if run.created_at.tzinfo else run.created_at.replace(tzinfo=UTC)
-    if run.status == "running" and utcnow() - started > STALE_RUN:
-        run.status, run.message = "failed", "The process running this stopped before it finished; start it again."
-        commit(session, "Monte Carlo run")
+    jobs.check_worker(session, run.job)
     return run
 
 
-def cancel_run(session: Session, run_id: int) -> MonteCarloRun:
+def cancel_run(session: Session, run_id: int, username: str, is_admin: bool) -> MonteCarloRun:
+    """Cancel a run for ``username``: only its owner or an admin may (``jobs.NotYours``, 403). A
+    queued run is cancelled at once, a running one stops between two batches of draws, a finished
+    one keeps its state."""
     run = get_run(session, run_id)
-    if run.status == "running":
-        run.cancel_requested = True
-        commit(session, "Monte Carlo run")
+    jobs.request_cancel(session, run.job, username, is_admin)
     return run
 
 
 def run_out(run: MonteCarloRun) -> schemas.MonteCarloRunOut:
+    job = run.job
     return schemas.MonteCarloRunOut(
-        id=run.id, lot_id=run.lot_id, status=run.status, progress=run.progress, message=run.message,
-        created_by=run.created_by, created_at=run.created_at,
+        id=run.id, lot_id=run.lot_id, status=job.status, progress=job.progress, message=job.message,
+        cancel_requested=job.cancel_requested, created_by=run.created_by, created_at=run.created_at,
+        started_at=job.started_at, finished_at=job.finished_at,
         result=schemas.MonteCarloOut(**run.result) if run.result else None,
     )
 
 
 # --- robustness frozen with an award -------------------------------------------------------------
 
+# Computed in the award's own request, not queued: the award seals the result in the same
+# transaction, and 2,000 draws on ``monte_carlo_threads`` threads take a small fraction of a
+# second even for a lot at ``max_offers_per_lot``.
 AWARD_DRAWS = 2000
 AWARD_INPUTS = {
     "energy_price_per_kwh": "triangular, -25 % to +25 % around the basis",

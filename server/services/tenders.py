@@ -6,13 +6,13 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session, selectinload
 
 from server import schemas
-from server.errors import InvalidField
+from server.errors import Conflict, InvalidField
 from server.services.common import apply_patch, check_version, commit, get_or_404
 from server.services.compliance import check_keys
 from server.services.cost_bases import get_revision
 from server.services.loading import own_loading_warnings
 from server.services.locks import ensure_no_records, ensure_open, ensure_tender_open
-from server.storage.models import LoadShape, Lot, Offer, Tender
+from server.storage.models import EvaluationRecord, LoadShape, Lot, Offer, Tender, TestCertificate
 
 _TENDER_REQUIRED = {
     "reference", "title", "currency", "status", "exchange_rates", "tolerance_standard", "penalty_multiplier",
@@ -180,8 +180,17 @@ def patch_lot(session: Session, lot_id: int, patch: schemas.LotPatch) -> Lot:
 
 
 def delete_lot(session: Session, lot_id: int) -> None:
+    """Delete an open lot. A lot that was ever awarded keeps its evaluation records and test
+    certificates, and so is kept itself (409), as its tender is."""
     lot = get_lot(session, lot_id)
     ensure_open(session, lot)
+    records = session.scalar(select(func.count()).select_from(EvaluationRecord).where(EvaluationRecord.lot_id == lot.id))
+    certificates = session.scalar(select(func.count()).select_from(TestCertificate).where(TestCertificate.lot_id == lot.id))
+    if records or certificates:
+        raise Conflict(
+            f"Lot '{lot.name}' has {records} evaluation record(s) from awards and {certificates} test "
+            "certificate(s); it is kept for the record."
+        )
     if len(lot.tender.lots) == 1:
         raise InvalidField("lot", "a tender keeps at least one lot; delete the tender instead.")
     session.delete(lot)

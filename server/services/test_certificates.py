@@ -24,7 +24,7 @@ from domain.factory_tests import (
 from domain.routine_tests import Reading, routine_test_figures
 from server import schemas
 from server.errors import Conflict, ImportRefused, InvalidField
-from server.exports import write_csv
+from server.exports import write_csv, xlsx_text
 from server.services.common import commit
 from server.services.locks import active_record
 from server.services.tenders import get_lot
@@ -267,7 +267,8 @@ def template_xlsx(session: Session, lot_id: int) -> bytes:
     for name, (meaning, unit, empty, example) in COLUMN_NOTES.items():
         notes.append([name, meaning, unit, empty, example])
     notes.append([])
-    notes.append([f"Lot {lot.name}: one certificate a row on the first sheet; a file with any bad row stores nothing."])
+    notes.append([xlsx_text(f"Lot {lot.name}: one certificate a row on the first sheet; "
+                            "a file with any bad row stores nothing.")])
     for letter, width in zip("ABCDE", (20, 58, 12, 42, 24)):
         notes.column_dimensions[letter].width = width
     buffer = io.BytesIO()

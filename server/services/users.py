@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 
-from sqlalchemy import bindparam, func, select, update
+from sqlalchemy import DateTime, bindparam, case, or_, select, text, update
 from sqlalchemy.orm import Session
 
 from server.errors import InvalidField, NotFound, ServiceError
@@ -14,7 +15,7 @@ from server.security import hash_password, new_token, token_hash, verify_passwor
 from server.services.common import check_version, commit, get_or_404
 from server.settings import Settings
 from server.storage import audit, generation
-from server.storage.models import ROLES, AuthSession, LoginAttempt, User, utcnow
+from server.storage.models import ROLES, AuthSession, LoginAttempt, LoginCounter, User, utcnow
 
 MIN_PASSWORD_LENGTH = 10
 # How often a session's last-seen time is written: not on every request.
@@ -110,45 +111,111 @@ def _revoke_all(session: Session, user_id: int) -> None:
     )
 
 
-def _failures_since(session: Session, column, value: str, since: datetime) -> int:
-    return session.scalar(
-        select(func.count()).select_from(LoginAttempt).where(
-            column == value, LoginAttempt.succeeded.is_(False), LoginAttempt.at >= since
+# What is kept of a name typed at log-in (the longest user name) and of the client's address:
+# a row stays small whatever is typed, and PostgreSQL never refuses one as too long.
+MAX_NAME_CHARS = 64
+MAX_ADDRESS_CHARS = 64
+
+_COUNTERS = LoginCounter.__table__
+# Made on first use; concurrent first attempts for one key make one row between them.
+_NEW_COUNTER = text(
+    'INSERT INTO login_counters ("key", failures, window_started_at) VALUES (:key, 0, :now) '
+    'ON CONFLICT ("key") DO NOTHING'
+).bindparams(bindparam("now", type_=DateTime(timezone=True)))
+
+
+def name_hash(typed: str) -> str:
+    """SHA-256 (hex) of a name as typed, however long: what per-account counting keys on."""
+    return hashlib.sha256(typed.encode("utf-8", "surrogatepass")).hexdigest()
+
+
+@dataclass(frozen=True)
+class _Place:
+    """A place an attempt holds on one counter: the counter, the window it counts in, and the
+    count with this attempt in it."""
+
+    key: str
+    window_started_at: datetime
+    failures: int
+
+
+def _take_places(session: Session, limits: list[tuple[str, int]], now: datetime, since: datetime) -> list[_Place] | None:
+    """One place on each counter, or none at all when any is full (a lock-out).
+
+    Each place is one conditional UPDATE (a window older than ``since`` starts again), and the
+    places are committed at once, before the password is checked: attempts sent together wait
+    for one another only this long, and whatever their number at most ``limit`` of them are
+    ever checked within one window."""
+    places = []
+    for key, limit in limits:
+        session.execute(_NEW_COUNTER, {"key": key, "now": now})
+        expired = _COUNTERS.c.window_started_at < since
+        row = session.execute(
+            update(_COUNTERS)
+            .where(_COUNTERS.c.key == key, or_(expired, _COUNTERS.c.failures < limit))
+            .values(failures=case((expired, 1), else_=_COUNTERS.c.failures + 1),
+                    window_started_at=case((expired, now), else_=_COUNTERS.c.window_started_at))
+            .returning(_COUNTERS.c.window_started_at, _COUNTERS.c.failures)
+        ).first()
+        if row is None:
+            session.rollback()  # the places taken on the other counters go back with it
+            return None
+        places.append(_Place(key, row.window_started_at, row.failures))
+    session.commit()
+    return places
+
+
+def _give_back(session: Session, places: list[_Place]) -> None:
+    """A log-in that succeeded frees its places (in the window it took them in)."""
+    for place in places:
+        session.execute(
+            update(_COUNTERS)
+            .where(_COUNTERS.c.key == place.key, _COUNTERS.c.window_started_at == place.window_started_at,
+                   _COUNTERS.c.failures > 0)
+            .values(failures=_COUNTERS.c.failures - 1)
         )
-    )
 
 
 def log_in(session: Session, settings: Settings, username: str, password: str, address: str, kind: str) -> tuple[str, AuthSession]:
     """Check the password under throttling; on success open a new session (never reuse one).
 
+    An attempt first takes a place on its account's counter (the name as typed) and its
+    address's, then checks the password: a full counter refuses it unchecked. Only the first
+    ``MAX_NAME_CHARS`` characters of the name are stored, with its hash.
+
     Returns the raw token (for the cookie or the bearer header) and the stored session.
     """
     now = utcnow()
     since = now - timedelta(minutes=settings.lockout_minutes)
-    actor = audit.Actor(username or "(blank)", address)
-    locked = (
-        _failures_since(session, LoginAttempt.username, username, since) >= settings.lockout_failures
-        or _failures_since(session, LoginAttempt.address, address, since) >= settings.address_lockout_failures
-    )
-    user = session.scalar(select(User).where(User.username == username))
-    if locked:
-        session.add(LoginAttempt(username=username, address=address, succeeded=False, at=now))
+    name, typed_hash, address = username[:MAX_NAME_CHARS], name_hash(username), address[:MAX_ADDRESS_CHARS]
+    actor = audit.Actor(name or "(blank)", address)
+    # A name longer than any user's is nobody's; it is not sent to the database to find out.
+    user = session.scalar(select(User).where(User.username == username)) if username == name else None
+    places = _take_places(session, [(f"account:{typed_hash}", settings.lockout_failures),
+                                    (f"address:{address}", settings.address_lockout_failures)], now, since)
+    if places is None:
+        session.add(LoginAttempt(username=name, username_hash=typed_hash, address=address, succeeded=False, at=now))
         audit.record(session, "login_locked", "user", user.id if user else None,
-                     f"log-in refused while '{username}' or {address} is locked out", actor=actor)
+                     f"log-in refused while '{name}' or {address} is locked out", actor=actor)
         session.commit()
         raise LoginRefused(
             f"Too many failed log-ins: try again in {settings.lockout_minutes} minutes, or ask an administrator."
         )
     ok = verify_password(password, user.password_hash if user else None) and user is not None and not user.disabled
-    session.add(LoginAttempt(username=username, address=address, succeeded=ok, at=now))
+    session.add(LoginAttempt(username=name, username_hash=typed_hash, address=address, succeeded=ok, at=now))
     if not ok:
         audit.record(session, "login_failed", "user", user.id if user else None,
-                     f"failed log-in as '{username}'", actor=actor)
-        if _failures_since(session, LoginAttempt.username, username, since) + 1 == settings.lockout_failures:
+                     f"failed log-in as '{name}'", actor=actor)
+        account, at_address = places
+        if account.failures == settings.lockout_failures:
             audit.record(session, "lockout", "user", user.id if user else None,
-                         f"'{username}' locked out for {settings.lockout_minutes} minutes", actor=actor)
+                         f"'{name}' locked out for {settings.lockout_minutes} minutes", actor=actor)
+        if at_address.failures == settings.address_lockout_failures:
+            audit.record(session, "lockout", "user", None,
+                         f"{address} locked out for {settings.lockout_minutes} minutes", actor=actor)
         session.commit()
         raise LoginRefused("Wrong user name or password.")
+    _give_back(session, places)
     token = new_token()
     lifetime = (
         timedelta(hours=settings.session_max_hours) if kind == "browser" else timedelta(minutes=settings.token_minutes)
@@ -169,12 +236,13 @@ def log_in(session: Session, settings: Settings, username: str, password: str, a
     return token, stored
 
 
-# Who holds a token, and the data generation, in one statement built once (composing it cost
-# more than running it). Columns as ``principal_from_row`` takes them.
-RESOLVE = (
-    select(AuthSession.id, AuthSession.kind, AuthSession.csrf_token, AuthSession.revoked_at, AuthSession.expires_at,
-           AuthSession.last_seen_at, User.id, User.username, User.roles, User.disabled,
-           *generation.generation_columns())
+# Who holds a token, and the data version, in one statement built once (composing it cost
+# more than running it). Every column is named: ``principal_from_row`` and
+# ``generation.version_of`` read the row by name.
+RESOLVE = generation.with_data_version(
+    select(AuthSession.id.label("session_id"), AuthSession.kind, AuthSession.csrf_token, AuthSession.revoked_at,
+           AuthSession.expires_at, AuthSession.last_seen_at, User.id.label("user_id"), User.username, User.roles,
+           User.disabled)
     .join(User, User.id == AuthSession.user_id)
     .where(AuthSession.token_hash == bindparam("token_hash"))
 )
@@ -187,29 +255,30 @@ def resolve(session: Session, settings: Settings, token: str | None, kinds: tupl
     row = session.execute(RESOLVE, {"token_hash": token_hash(token)}).first()
     if row is None:
         return None
-    generation.remember(session, generation.generation_value(row[-2], row[-1]))
-    principal, stale = principal_from_row(tuple(row), settings, kinds)
+    generation.remember(session, generation.version_of(row))
+    principal, stale = principal_from_row(row, settings, kinds)
     if stale:
         touch(session, principal.session_id)
     return principal
 
 
-def principal_from_row(row: tuple, settings: Settings, kinds: tuple[str, ...]) -> tuple[Principal | None, bool]:
-    """The principal of a ``RESOLVE`` row (values as SQLAlchemy or the driver gives them), or
-    None when the session is of another kind, revoked, expired or idle, or the user disabled;
-    and whether its last-seen time is old enough to be written again (``touch``)."""
-    (session_id, kind, csrf_token, revoked_at, expires_at, last_seen_at, user_id, username, roles, disabled,
-     *_generation) = row
-    if kind not in kinds or revoked_at is not None or disabled:
+def principal_from_row(row, settings: Settings, kinds: tuple[str, ...]) -> tuple[Principal | None, bool]:
+    """The principal of a ``RESOLVE`` row (a SQLAlchemy row, or ``Database.read_row``'s named
+    tuple of the driver's values), or None when the session is of another kind, revoked,
+    expired or idle, or the user disabled; and whether its last-seen time is old enough to be
+    written again (``touch``)."""
+    kind = row.kind
+    if kind not in kinds or row.revoked_at is not None or row.disabled:
         return None, False
     now = utcnow()
-    last_seen = _aware(last_seen_at)
-    if now >= _aware(expires_at):
+    last_seen = _aware(row.last_seen_at)
+    if now >= _aware(row.expires_at):
         return None, False
     if kind == "browser" and now - last_seen > timedelta(minutes=settings.session_idle_minutes):
         return None, False
-    roles = json.loads(roles) if isinstance(roles, str) else roles
-    return Principal(user_id, username, frozenset(roles), session_id, kind, csrf_token), now - last_seen > _TOUCH_EVERY
+    roles = json.loads(row.roles) if isinstance(row.roles, str) else row.roles
+    principal = Principal(row.user_id, row.username, frozenset(roles), row.session_id, kind, row.csrf_token)
+    return principal, now - last_seen > _TOUCH_EVERY
 
 
 def touch(session: Session, session_id: int) -> None:

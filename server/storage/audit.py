@@ -1,5 +1,9 @@
 """The audit trail: every create, update and delete of an audited record is written in the
-same transaction as the change itself, by a session hook, so no service can forget it."""
+same transaction as the change itself, by a session hook, so no service can forget it.
+
+The same hooks move the data version (``server.storage.generation``) in every transaction that
+changes evaluated data, which is what the caches key on; security events do not move it.
+"""
 
 from __future__ import annotations
 
@@ -10,6 +14,7 @@ from typing import Any
 from sqlalchemy import event, inspect
 from sqlalchemy.orm import Session
 
+from server.storage import generation
 from server.storage.models import (
     AuditEvent,
     CostBasis,
@@ -38,9 +43,12 @@ AUDITED: dict[type, str] = {
     TestCertificate: "test_certificate",
     LoadShape: "load_shape",
 }
+# Events about who is signed in, never about evaluated data: they leave the data version (and
+# so every cache) alone, or each log-in, even a failed one, would empty every cache.
+SECURITY_ACTIONS = frozenset({"login", "login_failed", "login_locked", "lockout", "logout", "token_revoked"})
 # Never copied into the trail (secrets), or noise that every change carries.
 _HIDDEN = {"password_hash"}
-_NOISE = {"created_at", "updated_at"}
+_NOISE = {"created_at", "updated_at", "bidder_key"}  # bidder_key follows bidder
 
 
 @dataclass(frozen=True)
@@ -125,9 +133,28 @@ def event_row(actor: Actor, action: str, object_type: str, object_id: int | None
 
 def record(session: Session, action: str, object_type: str, object_id: int | None, summary: str,
            before: dict | None = None, after: dict | None = None, actor: Actor | None = None) -> None:
-    """Add an event that is not a plain row change (a login, an award, a reopening)."""
+    """Add an event that is not a plain row change (a login, an award, a reopening). Unless
+    its action is one of ``SECURITY_ACTIONS``, the flush that writes it moves the data version."""
     row = event_row(actor or get_actor(session), action, object_type, object_id, summary, before, after)
     session.add(AuditEvent(**row))
+
+
+def _changes_evaluated_data(session: Session) -> bool:
+    """Whether the coming flush writes an audited change or an event that is not a security event."""
+    for obj in session.new:
+        if type(obj) in AUDITED or (isinstance(obj, AuditEvent) and obj.action not in SECURITY_ACTIONS):
+            return True
+    if any(type(obj) in AUDITED for obj in session.deleted):
+        return True
+    return any(type(obj) in AUDITED and session.is_modified(obj, include_collections=False) for obj in session.dirty)
+
+
+@event.listens_for(Session, "before_flush")
+def _bump_data_version(session: Session, _context, _instances) -> None:
+    # Before the flush rather than after: the version's row lock is then taken before any lock
+    # on the rows this flush changes, the same order in every writer.
+    if _changes_evaluated_data(session):
+        generation.bump(session)
 
 
 @event.listens_for(Session, "after_flush")
@@ -153,4 +180,5 @@ def _audit_changes(session: Session, _context) -> None:
             rows.append(event_row(actor, "delete", kind, obj.id, f"deleted {kind} {_label(obj)}".strip(),
                                   before=_snapshot(obj)))
     if rows:
+        generation.bump(session)  # already done before the flush, unless the flush itself added a change
         session.connection().execute(AuditEvent.__table__.insert(), rows)

@@ -3,13 +3,17 @@
 from __future__ import annotations
 
 import asyncio
-from collections.abc import Iterator
+import os
+from collections import namedtuple
+from collections.abc import Callable, Iterator
 from typing import Any
 from contextlib import contextmanager
+from datetime import UTC, datetime
 
 import psycopg
 from psycopg_pool import AsyncConnectionPool
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import DateTime, Engine, create_engine, event
+from sqlalchemy.dialects import sqlite
 from sqlalchemy.engine import Compiled
 from sqlalchemy.sql.expression import Executable
 from sqlalchemy.orm import Session, sessionmaker
@@ -22,10 +26,45 @@ from server.storage.generation import database_key
 ASYNC_POOL_SIZE = 4
 
 
+class _UTCDateTime(sqlite.DATETIME):
+    """SQLite keeps a time as text without its zone: written in UTC, read back in UTC, so that
+    every ``DateTime(timezone=True)`` column is aware on SQLite as it is on PostgreSQL."""
+
+    def bind_processor(self, dialect):
+        to_text = super().bind_processor(dialect)
+
+        def process(value):
+            if isinstance(value, datetime) and value.tzinfo is not None:
+                value = value.astimezone(UTC)
+            return to_text(value) if to_text else value
+
+        return process
+
+    def result_processor(self, dialect, coltype):
+        from_text = super().result_processor(dialect, coltype)
+        if not self.timezone:
+            return from_text
+
+        def process(value):
+            value = from_text(value) if from_text else value
+            return value.replace(tzinfo=UTC) if isinstance(value, datetime) and value.tzinfo is None else value
+
+        return process
+
+
+def _create_private(path: str) -> None:
+    """Create a new SQLite file readable by its owner alone (SQLite gives its -wal and -shm
+    files the same mode); an existing file keeps the mode it has."""
+    if path and path != ":memory:" and not path.startswith("file:") and not os.path.exists(path):
+        os.close(os.open(path, os.O_CREAT | os.O_WRONLY, 0o600))
+
+
 def make_engine(url: str) -> Engine:
-    """Create an engine; SQLite gets foreign keys, WAL and a busy timeout."""
+    """Create an engine; SQLite gets foreign keys, WAL, a busy timeout, aware times and a file of mode 0600."""
     if url.startswith("sqlite"):
         engine = create_engine(url, connect_args={"check_same_thread": False, "timeout": 30})
+        _create_private(engine.url.database or "")
+        engine.dialect.colspecs = {**engine.dialect.colspecs, DateTime: _UTCDateTime}
 
         @event.listens_for(engine, "connect")
         def _sqlite_pragmas(dbapi_connection, _record):  # pragma: no cover - trivial
@@ -49,7 +88,7 @@ class Database:
         self.engine = make_engine(url)
         self.sessionmaker = sessionmaker(self.engine, expire_on_commit=False)
         self.cache_key = database_key(self.engine.url)  # see server.storage.generation
-        self._compiled: dict[int, tuple[Executable, Compiled]] = {}
+        self._compiled: dict[int, tuple[Executable, Compiled, Callable[[Any], tuple]]] = {}
         # PostgreSQL, in a served app: asynchronous connections for the read every request
         # makes, bound to the event loop that opened them (see open_async).
         self._async_pool: AsyncConnectionPool | None = None
@@ -66,13 +105,14 @@ class Database:
             session.close()
 
     def read_row(self, statement: Executable, params: dict[str, Any]) -> tuple | None:
-        """The first row of a read-only ``statement``, as the driver returns its values.
+        """The first row of a read-only ``statement``, as the driver returns its values, in a
+        named tuple whose fields are the statement's column names (``row.data_version``).
 
         For a read on every request: a pooled driver connection in autocommit mode (no BEGIN or
         ROLLBACK) and SQL compiled once, which costs a fraction of a session's execute. Values
         are not converted (SQLite's driver gives times and JSON as text).
         """
-        sql, values = self._bind(statement, params)
+        sql, values, make_row = self._bind(statement, params)
         postgres = self.engine.dialect.name == "postgresql"
         connection = self.engine.raw_connection()
         try:
@@ -82,7 +122,8 @@ class Database:
             cursor = driver.cursor()
             try:
                 cursor.execute(sql, values)
-                return cursor.fetchone()
+                row = cursor.fetchone()
+                return None if row is None else make_row(row)
             finally:
                 cursor.close()
                 if postgres:
@@ -98,12 +139,13 @@ class Database:
         tried once more."""
         if self._async_pool is None or self._async_loop is not asyncio.get_running_loop():
             return await asyncio.to_thread(self.read_row, statement, params)
-        sql, values = self._bind(statement, params)
+        sql, values, make_row = self._bind(statement, params)
         for attempt in (1, 2):
             try:
                 async with self._async_pool.connection() as connection:
                     cursor = await connection.execute(sql, values)
-                    return await cursor.fetchone()
+                    row = await cursor.fetchone()
+                    return None if row is None else make_row(row)
             except psycopg.OperationalError:
                 if attempt == 2:
                     raise
@@ -129,19 +171,22 @@ class Database:
             await self._async_pool.close()
         self._async_pool = self._async_loop = None
 
-    def _bind(self, statement: Executable, params: dict[str, Any]) -> tuple[str, Any]:
-        compiled = self._compile(statement)
+    def _bind(self, statement: Executable, params: dict[str, Any]) -> tuple[str, Any, Callable[[Any], tuple]]:
+        compiled, make_row = self._compile(statement)
         bound = compiled.construct_params(params)
         values = tuple(bound[name] for name in compiled.positiontup) if compiled.positiontup else bound
-        return compiled.string, values
+        return compiled.string, values, make_row
 
-    def _compile(self, statement: Executable) -> Compiled:
-        # Keyed by identity, holding the statement so that its id is never reused.
+    def _compile(self, statement: Executable) -> tuple[Compiled, Callable[[Any], tuple]]:
+        # Keyed by identity, holding the statement so that its id is never reused. The row type
+        # is made once too: code reads a row's values by column name, never by position.
         entry = self._compiled.get(id(statement))
         if entry is None or entry[0] is not statement:
-            entry = (statement, statement.compile(dialect=self.engine.dialect))
+            names = list(statement.selected_columns.keys()) if hasattr(statement, "selected_columns") else []
+            make_row = namedtuple("Row", names, rename=True)._make if names else tuple
+            entry = (statement, statement.compile(dialect=self.engine.dialect), make_row)
             self._compiled[id(statement)] = entry
-        return entry[1]
+        return entry[1], entry[2]
 
     def dispose(self) -> None:
         self.engine.dispose()

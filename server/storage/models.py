@@ -5,8 +5,8 @@ from __future__ import annotations
 from datetime import UTC, date, datetime
 from typing import Any
 
-from sqlalchemy import JSON, Boolean, Date, DateTime, LargeBinary, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
-from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+from sqlalchemy import JSON, BigInteger, Boolean, CheckConstraint, Date, DateTime, LargeBinary, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship, validates
 
 NAMING_CONVENTION = {
     "ix": "ix_%(column_0_label)s",
@@ -166,13 +166,23 @@ class Lot(Versioned, Base):
         return self.cost_basis_revision or self.tender.cost_basis_revision
 
 
+def bidder_key(bidder: str) -> str:
+    """A bidder's name as offers are told apart: casefolded, each run of whitespace one space."""
+    return " ".join(bidder.casefold().split())
+
+
 class Offer(Versioned, Base):
     __tablename__ = "offers"
+    __table_args__ = (UniqueConstraint("lot_id", "bidder_key"),)
     __mapper_args__ = {"version_id_col": Versioned.version}
 
     id: Mapped[int] = mapped_column(primary_key=True)
     lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="CASCADE"), nullable=False, index=True)
     bidder: Mapped[str] = mapped_column(String(120), nullable=False)
+    # ``bidder_key(bidder)``, set whenever the bidder is: one offer per bidder and lot, refused by
+    # the database itself however the offers arrive at once. Casefolding can make a name up to
+    # three times longer. None only on duplicates kept from before the rule (migration 0011).
+    bidder_key: Mapped[str | None] = mapped_column(String(360))
     unit_price: Mapped[float] = mapped_column(Float, nullable=False)
     # The currency the price is stated in; None means the tender's currency.
     currency: Mapped[str | None] = mapped_column(String(3))
@@ -187,6 +197,11 @@ class Offer(Versioned, Base):
     delivery_weeks: Mapped[int | None] = mapped_column(Integer)
     notes: Mapped[str | None] = mapped_column(Text)
     lot: Mapped[Lot] = relationship(back_populates="offers")
+
+    @validates("bidder")
+    def _set_bidder_key(self, _name: str, bidder: str | None) -> str | None:
+        self.bidder_key = None if bidder is None else bidder_key(bidder)
+        return bidder
 
 
 # --- people, sessions, audit, awards ------------------------------------------------------------
@@ -223,6 +238,9 @@ class AuthSession(Base):
 
 
 class LoginAttempt(Base):
+    """One log-in attempt. The name is kept as typed only up to the longest user name, with a
+    hash of all of it, so whatever is typed a row stays small."""
+
     __tablename__ = "login_attempts"
     __table_args__ = (
         Index("ix_login_attempts_username_at", "username", "at"),
@@ -232,8 +250,23 @@ class LoginAttempt(Base):
     id: Mapped[int] = mapped_column(primary_key=True)
     at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
     username: Mapped[str] = mapped_column(String(64), nullable=False)
+    # SHA-256 (hex) of the whole name as typed.
+    username_hash: Mapped[str] = mapped_column(String(64), nullable=False)
     address: Mapped[str] = mapped_column(String(64), nullable=False)
     succeeded: Mapped[bool] = mapped_column(Boolean, nullable=False)
+
+
+class LoginCounter(Base):
+    """The log-ins of one account or one address counted against its limit in the current
+    window: failures, and attempts whose password is being checked. One conditional UPDATE
+    takes a place before the (slow) check, so guesses sent at once can never pass the limit."""
+
+    __tablename__ = "login_counters"
+
+    # "account:" and the SHA-256 of the name as typed, or "address:" and the client's address.
+    key: Mapped[str] = mapped_column(String(80), primary_key=True)
+    failures: Mapped[int] = mapped_column(Integer, nullable=False, default=0)
+    window_started_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
 
 
 class AuditEvent(Base):
@@ -275,6 +308,9 @@ class EvaluationRecord(Base):
     robustness: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     # The award decision: chosen offer, margin, reason and acknowledged warnings (sealed with the inputs).
     decision: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    # HMAC-SHA256 of the sealed material with a server key (its id kept beside it), when one is set.
+    seal_key_id: Mapped[str | None] = mapped_column(String(32))
+    seal_hmac: Mapped[str | None] = mapped_column(String(64))
     lot: Mapped[Lot] = relationship()
 
 
@@ -401,19 +437,72 @@ class AppDocument(Base):
     updated_by: Mapped[str] = mapped_column(String(64), nullable=False, default="system")
 
 
+class Job(Base):
+    """A piece of long work on the job queue (``server.jobs``): what to do, for whom, and how far
+    it has got. The same rows on either engine; on PostgreSQL the queue library only carries
+    their ids to a worker, so what a person sees never depends on the library's tables."""
+
+    __tablename__ = "jobs"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    kind: Mapped[str] = mapped_column(String(32), nullable=False)
+    owner: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
+    payload: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
+    # queued, running, done, failed or cancelled (server.jobs.STATUSES).
+    status: Mapped[str] = mapped_column(String(16), nullable=False, default="queued", index=True)
+    progress: Mapped[float] = mapped_column(Float, nullable=False, default=0.0)
+    cancel_requested: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    message: Mapped[str] = mapped_column(Text, nullable=False, default="")
+    # The worker that holds the job while it runs (JobWorker.id; no foreign key, so that a
+    # worker's row can go while the job keeps the name of who dropped it).
+    worker_id: Mapped[str | None] = mapped_column(String(64))
+    # The queue library's own id of the job (PostgreSQL only).
+    queue_job_id: Mapped[int | None] = mapped_column(BigInteger)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    started_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+
+
+class JobWorker(Base):
+    """A process that runs jobs, while it lives: the host and process it runs as and when it last
+    said it was alive. A job held by a worker that is gone is failed (``server.jobs``)."""
+
+    __tablename__ = "job_workers"
+
+    id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    host: Mapped[str] = mapped_column(String(255), nullable=False)
+    pid: Mapped[int] = mapped_column(Integer, nullable=False)
+    started_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+    heartbeat_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
+
+
 class MonteCarloRun(Base):
-    """A Monte Carlo run of a lot's ranking, run in the background; progress and result kept here
-    so any worker can report them and a cancel request reaches the run."""
+    """A Monte Carlo run of a lot's ranking: what was asked and, once done, the result. Its state
+    (queued, running, done, failed, cancelled), progress and cancel request are its job's, so any
+    worker can report them and a cancel request reaches the run."""
 
     __tablename__ = "monte_carlo_runs"
 
     id: Mapped[int] = mapped_column(primary_key=True)
     lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id", ondelete="CASCADE"), nullable=False, index=True)
+    job_id: Mapped[int] = mapped_column(ForeignKey("jobs.id"), nullable=False, unique=True)
     created_by: Mapped[str] = mapped_column(String(64), nullable=False)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), default=utcnow, nullable=False)
-    status: Mapped[str] = mapped_column(String(16), nullable=False, default="running")
-    progress: Mapped[float] = mapped_column(Float, nullable=False, default=0.0)
-    cancel_requested: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
     request: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False)
     result: Mapped[dict[str, Any] | None] = mapped_column(JSON)
-    message: Mapped[str] = mapped_column(Text, nullable=False, default="")
+    job: Mapped[Job] = relationship(lazy="joined")
+
+
+class DataVersion(Base):
+    """The version of the evaluated data: one row, moved inside every transaction that changes
+    anything a ranking or page shows (``server.storage.generation.bump``), never by a log-in."""
+
+    __tablename__ = "data_version"
+    __table_args__ = (CheckConstraint("id = 1", name="single_row"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=False)
+    value: Mapped[int] = mapped_column(BigInteger, nullable=False)
+    # Drawn at random whenever the row is made, so a database emptied and refilled never
+    # repeats a version an earlier filling had (caches key on both).
+    epoch: Mapped[int] = mapped_column(BigInteger, nullable=False)
+    changed_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 
 import pytest
 from sqlalchemy import create_engine, text
@@ -116,17 +117,130 @@ def test_reopen_needs_a_reason_and_unlocks(client):
     assert client.post(f"/api/v1/lots/{lot_id}/reopen", json={"reason": "again"}).status_code == 409
 
 
+def _without_triggers(conn) -> None:
+    """Let a test tamper as someone with direct database access could: triggers off for this
+    transaction (PostgreSQL, as a replica would apply rows) or dropped (SQLite)."""
+    if conn.dialect.name == "postgresql":
+        conn.execute(text("SET LOCAL session_replication_role = replica"))
+    else:
+        for name in ("evaluation_records_sealed", "audit_events_no_update"):
+            conn.execute(text(f"DROP TRIGGER IF EXISTS {name}"))
+
+
+def test_the_database_refuses_changes_to_a_record_and_to_the_trail(client, db_url):
+    _, lot_id = _lot_with_offers(client)
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    engine = create_engine(db_url)
+    try:
+        statements = ["UPDATE evaluation_records SET sha256 = '00'", "DELETE FROM evaluation_records",
+                      "UPDATE evaluation_records SET inputs = '{}'"]
+        if engine.dialect.name == "postgresql":
+            statements += ["TRUNCATE audit_events", "TRUNCATE evaluation_records CASCADE"]
+        else:
+            statements += ["INSERT OR REPLACE INTO audit_events (id, at, actor, action, object_type, summary) "
+                           "SELECT id, at, 'mallory', action, object_type, 'rewritten' FROM audit_events "
+                           "WHERE action = 'award'",
+                           "INSERT OR REPLACE INTO evaluation_records SELECT * FROM evaluation_records"]
+        for statement in statements:
+            with pytest.raises(DBAPIError), engine.begin() as conn:
+                conn.execute(text(statement))
+        with engine.begin() as conn:  # reopening a standing award, once, is the one change allowed
+            conn.execute(text("UPDATE evaluation_records SET reopened_at = CURRENT_TIMESTAMP, reopened_by = 'x', "
+                              "reopen_reason = 'y'"))
+        with pytest.raises(DBAPIError), engine.begin() as conn:
+            conn.execute(text("UPDATE evaluation_records SET reopen_reason = 'changed later'"))
+    finally:
+        engine.dispose()
+    assert client.get(f"/api/v1/evaluation-records/{record['id']}").json()["sha256"] == record["sha256"]
+
+
 def test_tampered_record_fails_verification(client, db_url):
     _, lot_id = _lot_with_offers(client)
     record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
     engine = create_engine(db_url)
     try:
         with engine.begin() as conn:
+            _without_triggers(conn)
             conn.execute(text("UPDATE evaluation_records SET sha256 = :h"), {"h": "0" * 64})
     finally:
         engine.dispose()
     verification = client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()
     assert not verification["verified"] and not verification["hash_matches"]
+
+
+def test_a_record_altered_with_its_own_hash_still_differs_from_the_audit_trail(client, db_url):
+    from server.services.awards import canonical_hash, sealed_material
+
+    _, lot_id = _lot_with_offers(client)
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    inputs = record["inputs"]
+    inputs["offers"][0]["unit_price"] = 1.0
+    forged = canonical_hash(sealed_material(inputs, record["decision"]))
+    engine = create_engine(db_url)
+    try:
+        with engine.begin() as conn:
+            _without_triggers(conn)
+            conn.execute(text("UPDATE evaluation_records SET inputs = :i, sha256 = :h"),
+                         {"i": json.dumps(inputs), "h": forged})
+    finally:
+        engine.dispose()
+    verification = client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()
+    assert verification["hash_matches"] and not verification["audit_hash_matches"] and not verification["verified"]
+    assert any("audit trail at award time" in d for d in verification["differences"])
+
+
+@pytest.mark.parametrize("tamper", ["price", "rate", "compliance"])
+def test_live_data_tampered_in_sql_fails_verification_and_says_what(client, db_url, tamper):
+    basis_id = client.post("/api/v1/cost-bases", json=f.direct_basis()).json()["id"]
+    body = f.tender(basis_id, lots=[f.lot(max_no_load_loss_w=800)])
+    lot_id = client.post("/api/v1/tenders", json=body).json()["lots"][0]["id"]
+    for bidder, price, p0 in [("Lean", 12000, 300), ("Cheap", 10000, 700)]:
+        client.post(f"/api/v1/lots/{lot_id}/offers", json=f.offer(bidder=bidder, unit_price=price, no_load_loss_w=p0))
+    record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+    assert client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()["verified"]
+    statement = {
+        "price": "UPDATE offers SET unit_price = unit_price * 10 WHERE bidder = 'Lean'",
+        "rate": "UPDATE cost_basis_revisions SET no_load_rate_per_kw = 1000",
+        "compliance": "UPDATE lots SET max_no_load_loss_w = 500",
+    }[tamper]
+    engine = create_engine(db_url)
+    try:
+        with engine.begin() as conn:
+            conn.execute(text(statement))
+    finally:
+        engine.dispose()
+    verification = client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()
+    assert not verification["verified"] and not verification["live_matches"]
+    assert verification["hash_matches"] and verification["audit_hash_matches"]  # the record itself is intact
+    said = " ".join(verification["differences"])
+    expected = {"price": "offer", "rate": "no_load_rate_per_kw",
+                "compliance": "(Cheap): compliance compliant in the record, not compliant now"}[tamper]
+    assert expected in said, said
+    if tamper == "price":
+        assert "(Lean): unit_price 12000" in said and "120000" in said
+
+
+def test_a_record_signed_with_a_server_key_verifies_and_detects_a_forgery(db_url, monkeypatch):
+    from server.settings import get_settings
+    from tests.conftest import make_client
+
+    monkeypatch.setenv("LOSSLEDGER_SEAL_KEYS", "2026a=" + "k" * 40 + ",2025b=" + "o" * 40)
+    get_settings.cache_clear()
+    try:
+        with make_client(db_url) as client:
+            client.headers.update(auth("tester"))
+            _, lot_id = _lot_with_offers(client)
+            record = client.post(f"/api/v1/lots/{lot_id}/award", json={}).json()
+            engine = create_engine(db_url)
+            try:
+                with engine.connect() as conn:
+                    key_id, signature = conn.execute(text("SELECT seal_key_id, seal_hmac FROM evaluation_records")).one()
+            finally:
+                engine.dispose()
+            assert key_id == "2026a" and len(signature) == 64
+            assert client.get(f"/api/v1/evaluation-records/{record['id']}/verification").json()["signature_matches"]
+    finally:
+        get_settings.cache_clear()
 
 
 def test_award_of_empty_lot_is_refused(client):

@@ -9,8 +9,10 @@ import re
 import time
 
 import pytest
+from fastapi.testclient import TestClient
 
 from server import schemas
+from server.app import create_app
 from server.pages.robustness_charts import offer_colours, rate_map_chart, toc_band_chart
 from server.pages.robustness_views import (
     MOVED_INPUTS,
@@ -20,6 +22,8 @@ from server.pages.robustness_views import (
     tornado_defaults,
     tornado_request,
 )
+from server.settings import Settings
+from server.storage.models import JobWorker, MonteCarloRun, utcnow
 from tests import factories
 from tests.e2e.test_pages import API, HX, error_beside, log_in
 
@@ -337,6 +341,69 @@ def test_a_run_form_names_bounds_outside_the_input_range_in_the_units_of_the_pag
     assert message.startswith("Low and high keep less than 0.1 % of this normal distribution")
     assert "loss_factor" not in _text(refused.text) and "distributions[" not in _text(refused.text)
     assert page_client.get(f"/lots/{lot_id}/robustness").text.count('id="mc-run"></div>') == 1  # no run stored
+
+
+@pytest.fixture
+def queue_page_client(sqlite_url):
+    """A page client whose app runs no job: a run stays queued until the test moves it."""
+    with TestClient(create_app(Settings(database_url=sqlite_url, env="test", jobs_in_web=False))) as client:
+        yield client
+
+
+def _start_button(page: str) -> str:
+    return re.search(r'<div class="actions" id="mc-start"[^>]*>.*?</div>', page, re.S).group(0)
+
+
+def test_while_a_run_waits_or_runs_the_page_shows_where_it_is_and_start_is_disabled(queue_page_client):
+    client = queue_page_client
+    lot_id = _lot(client)
+    csrf = log_in(client)  # tester
+    started = client.post(f"/lots/{lot_id}/robustness/monte-carlo", headers=HX, data=_mc_form(csrf, draws="1000"))
+    assert started.status_code == 200
+    run_id = int(re.search(r"<h3>Run (\d+) is waiting for a worker</h3>", started.text).group(1))
+    assert "It is next in the queue." in _text(started.text) and 'hx-trigger="every 1s"' in started.text
+    assert "disabled" in _start_button(started.text)
+    assert "disabled" in _start_button(client.get(f"/lots/{lot_id}/robustness").text)  # without htmx too
+
+    # Running on a worker that is alive: its progress in steps, and Cancel for whoever started it.
+    with client.app.state.db.session() as session:
+        session.add(JobWorker(id="w", host="another-host", pid=1, started_at=utcnow(), heartbeat_at=utcnow()))
+        job = session.get(MonteCarloRun, run_id).job
+        job.status, job.worker_id, job.progress = "running", "w", 0.35
+        session.commit()
+    polled = client.get(f"/monte-carlo-runs/{run_id}/progress", headers=HX).text
+    assert f"Run {run_id} is running" in polled and "35 % of 1,000 draws." in _text(polled)
+    assert 'value="35.0"' in polled and "Cancel</button>" in polled and 'id="mc-start"' not in polled
+    other = TestClient(client.app)
+    log_in(other, "viewer")  # neither the owner nor an admin: no Cancel to press
+    assert "Cancel</button>" not in other.get(f"/monte-carlo-runs/{run_id}/progress", headers=HX).text
+
+    # Once it stops, the answer carries the start button again, enabled.
+    cancelled = client.post(f"/monte-carlo-runs/{run_id}/cancel", headers=HX, data={"csrf_token": csrf})
+    assert cancelled.status_code == 200 and 'hx-trigger="every 1s"' in cancelled.text  # stops at its next check
+    with client.app.state.db.session() as session:
+        job = session.get(MonteCarloRun, run_id).job
+        job.status, job.message = "cancelled", "Cancelled on request."
+        session.commit()
+    stopped = client.get(f"/monte-carlo-runs/{run_id}/progress", headers=HX).text
+    assert f"Run {run_id} was cancelled." in _text(stopped)
+    button = _start_button(stopped)
+    assert 'hx-swap-oob="true"' in button and "disabled" not in button
+
+
+def test_a_queued_run_cancelled_from_the_page_by_its_owner_stops_at_once(queue_page_client):
+    client = queue_page_client
+    lot_id = _lot(client)
+    csrf = log_in(client, "viewer")
+    started = client.post(f"/lots/{lot_id}/robustness/monte-carlo", headers=HX, data=_mc_form(csrf, draws="500"))
+    run_id = int(re.search(r"<h3>Run (\d+) is waiting", started.text).group(1))
+    other = TestClient(client.app)
+    other_csrf = log_in(other, "buyer")
+    refused = other.post(f"/monte-carlo-runs/{run_id}/cancel", headers=HX, data={"csrf_token": other_csrf})
+    assert refused.status_code == 403
+    cancelled = client.post(f"/monte-carlo-runs/{run_id}/cancel", headers=HX, data={"csrf_token": csrf})
+    assert f"Run {run_id} was cancelled." in _text(cancelled.text)
+    assert "disabled" not in _start_button(cancelled.text)
 
 
 # --- pure helpers ---------------------------------------------------------------------------------

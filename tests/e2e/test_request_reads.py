@@ -9,7 +9,7 @@ import time
 from sqlalchemy import create_engine, text
 
 from server.storage.database import Database
-from server.storage.generation import data_generation, remember, remembered
+from server.storage.generation import data_version, remember, remembered
 from tests import factories as f
 from tests.conftest import add_user_with_token, auth, make_client
 
@@ -72,11 +72,11 @@ def test_a_remembered_generation_is_forgotten_by_any_write(sqlite_url):
     db = Database(sqlite_url)
     with db.session() as session:
         remember(session, (1, "then"))
-        assert data_generation(session) == (1, "then")
+        assert data_version(session) == (1, "then")
         session.execute(text("SELECT 1"))
         session.commit()
         assert remembered(session) is None
-        newest = data_generation(session)
+        newest = data_version(session)
         assert newest != (1, "then")
         remember(session, (1, "then"))
         session.rollback()

@@ -7,6 +7,8 @@ import time
 import pytest
 
 from tests import factories as f
+from tests.conftest import auth
+from tests.integration.test_jobs import app_client
 
 
 def _lot(client, basis=None):
@@ -121,18 +123,34 @@ def test_monte_carlo_is_reproducible_and_sums_to_one(client):
     assert other != first
 
 
-def test_background_run_reports_progress_and_result(client):
+def test_background_run_reports_progress_and_result(db_url):
+    with app_client(db_url, jobs_in_web=True) as client:  # the web process runs jobs, on either engine
+        lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+        run = client.post(f"/api/v1/lots/{lot_id}/monte-carlo-runs", json={"draws": 20000, "seed": 5}).json()
+        assert run["status"] in {"queued", "running", "done"} and run["created_by"] == "tester"
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:
+            state = client.get(f"/api/v1/monte-carlo-runs/{run['id']}").json()
+            if state["status"] not in {"queued", "running"}:
+                break
+            time.sleep(0.1)
+        assert state["status"] == "done" and state["progress"] == 1.0 and len(state["result"]["rows"]) == 3
+        assert client.post(f"/api/v1/monte-carlo-runs/{run['id']}/cancel").json()["status"] == "done"
+
+
+def test_a_monte_carlo_in_the_request_is_capped_and_a_larger_one_is_sent_to_the_queue(client):
     lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
-    run = client.post(f"/api/v1/lots/{lot_id}/monte-carlo-runs", json={"draws": 20000, "seed": 5}).json()
-    assert run["status"] == "running"
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        state = client.get(f"/api/v1/monte-carlo-runs/{run['id']}").json()
-        if state["status"] != "running":
-            break
-        time.sleep(0.1)
-    assert state["status"] == "done" and state["progress"] == 1.0 and len(state["result"]["rows"]) == 3
-    assert client.post(f"/api/v1/monte-carlo-runs/{run['id']}/cancel").json()["status"] == "done"
+    limit = 20_000  # the max_sync_draws default
+    assert client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json={"draws": limit, "seed": 1}).status_code == 200
+    refused = client.post(f"/api/v1/lots/{lot_id}/monte-carlo", json={"draws": limit + 1, "seed": 1})
+    assert refused.status_code == 422
+    (item,) = refused.json()["detail"]
+    assert item["loc"] == ["body", "draws"]
+    assert "at most 20,000 draws" in item["msg"] and f"/api/v1/lots/{lot_id}/monte-carlo-runs" in item["msg"]
+    # The same request is taken as a run, up to 1,000,000 draws, for any role.
+    queued = client.post(f"/api/v1/lots/{lot_id}/monte-carlo-runs", json={"draws": 1_000_000, "seed": 1},
+                         headers=auth("viewer"))
+    assert queued.status_code == 202 and queued.json()["status"] in {"queued", "running", "done"}
 
 
 def test_award_keeps_a_robustness_section(client):
@@ -153,25 +171,22 @@ def test_award_report_shows_the_robustness_section(client):
     assert "2,000 draws" in page.text
 
 
-def test_a_run_that_lost_its_worker_is_reported_failed(client, db_url):
+def test_a_run_that_lost_its_worker_is_reported_failed(db_url):
     from datetime import timedelta
 
-    from sqlalchemy import create_engine, text
+    from server.storage.models import JobWorker, MonteCarloRun, utcnow
 
-    from server.storage.models import utcnow
-
-    lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
-    engine = create_engine(db_url)
-    try:
-        with engine.begin() as conn:
-            conn.execute(text(
-                "INSERT INTO monte_carlo_runs (lot_id, created_by, created_at, status, progress, cancel_requested, "
-                "request, message) VALUES (:lot, 'tester', :at, 'running', 0.4, false, '{}', '')"),
-                {"lot": lot_id, "at": utcnow() - timedelta(hours=2)})
-            run_id = conn.execute(text("SELECT max(id) FROM monte_carlo_runs")).scalar()
-    finally:
-        engine.dispose()
-    state = client.get(f"/api/v1/monte-carlo-runs/{run_id}").json()
+    with app_client(db_url, jobs_in_web=False) as client:
+        lot_id, _ = _lot(client, f.present_worth_basis(name="PW"))
+        run_id = client.post(f"/api/v1/lots/{lot_id}/monte-carlo-runs", json={"draws": 1000}).json()["id"]
+        # Its worker ran on another host and has not said it is alive for an hour.
+        with client.app.state.db.session() as session:
+            session.add(JobWorker(id="elsewhere", host="another-host", pid=1, started_at=utcnow(),
+                                  heartbeat_at=utcnow() - timedelta(hours=1)))
+            job = session.get(MonteCarloRun, run_id).job
+            job.status, job.worker_id, job.progress = "running", "elsewhere", 0.4
+            session.commit()
+        state = client.get(f"/api/v1/monte-carlo-runs/{run_id}").json()
     assert state["status"] == "failed" and "start it again" in state["message"]
 
 
