@@ -4,7 +4,7 @@ VENV := .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed-stamp
 
-.PHONY: install demo serve test test-fast bench loadtest migrate clean
+.PHONY: install demo serve test test-fast lint bench loadtest migrate clean
 
 $(STAMP): pyproject.toml
 	@$(PYTHON) -c 'import sys; sys.exit(0 if sys.version_info >= (3, 11) else "LossLedger needs Python 3.11 or newer")'
@@ -24,7 +24,12 @@ serve: $(STAMP)
 migrate: $(STAMP)
 	$(VENV)/bin/lossledger db upgrade
 
-test: $(STAMP)
+# Lint (ruff) and types (mypy on domain/) first: a finding fails the build before the suite runs.
+lint: $(STAMP)
+	$(VENV)/bin/ruff check .
+	$(VENV)/bin/mypy
+
+test: lint
 	$(PY) -m pytest
 
 test-fast: $(STAMP)

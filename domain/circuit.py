@@ -814,7 +814,7 @@ def circuit_from_tests(
     except InvalidInput as error:
         raise InvalidInput("short_circuit", str(error)) from None
 
-    def to_circuit(ohm: float, side: Side) -> float:
+    def to_circuit(ohm: float | np.ndarray, side: Side) -> float:
         return float(refer_impedance(ohm, rated[side], rated[circuit_side]))
 
     req = to_circuit(series.req_ohm, sc_side)

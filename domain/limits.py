@@ -427,7 +427,7 @@ def check_table(table: LimitTable, unit: UnitFacts, offer: OfferLossFigures) -> 
         ]
     limit = interpolate_limit(table.ratings_kva, table.values, unit.rating_kva, table.extend_above)
     if table.kind == "min_efficiency":
-        eta = 100.0 * efficiency(table.per_unit_load, unit.rating_kva, offer.no_load_loss_w, load_loss_w)
+        eta = 100.0 * float(efficiency(table.per_unit_load, unit.rating_kva, offer.no_load_loss_w, load_loss_w))
         bil_note = ""
         if table.bil_range_kv is not None:
             bil, assumed = insulation_level_kv(unit)
@@ -438,8 +438,8 @@ def check_table(table: LimitTable, unit: UnitFacts, offer: OfferLossFigures) -> 
                           bil_note, table.note)
         return [finding(f"{table.name}: efficiency at {100 * table.per_unit_load:g} % load", limit,
                         round(eta, 4), "%", eta >= limit - 1e-9, note)]
-    pei = 100.0 * peak_efficiency_index(unit.rating_kva, offer.no_load_loss_w, load_loss_w,
-                                        cooling_power_no_load_w=offer.aux_loss_w)
+    pei = 100.0 * float(peak_efficiency_index(unit.rating_kva, offer.no_load_loss_w, load_loss_w,
+                                              cooling_power_no_load_w=offer.aux_loss_w))
     return [finding(f"{table.name}: peak efficiency index", limit, round(pei, 4), "%", pei >= limit - 1e-9,
                     _sentences(referral, table.note))]
 

@@ -4,7 +4,7 @@ figures that load-loss costing needs from it (peak, load factor, loss factor, RM
 from __future__ import annotations
 
 import calendar
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -180,11 +180,3 @@ def shape_figures(values: Any) -> ShapeFigures:
         rms_pu=float(np.sqrt(lsf)),
         equivalent_hours=lsf * series.size,
     )
-
-
-def seasons_from_mapping(data: Sequence[Mapping[str, Any]]) -> list[DayCurves]:
-    """DayCurves from plain dictionaries (``months``, ``weekday``, ``weekend``)."""
-    return [
-        DayCurves(tuple(int(m) for m in item["months"]), tuple(item["weekday"]), tuple(item["weekend"]))
-        for item in data
-    ]

@@ -8,9 +8,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import cast
 
 from domain.circuit import (
     EquivalentCircuit,
+    Side,
     circuit_from_tests,
     correct_load_loss_to_reference,
     rated_current_a,
@@ -101,9 +103,9 @@ def routine_test_figures(
     sc_rated_current = rated_current_a(rating_kva, sc_rated_v, phases)
     load_loss_rated = scale_to_current(short_circuit.power_w, short_circuit.current_a, sc_rated_current)
     if i2r_w is None and resistance_hv_ohm is not None and resistance_lv_ohm is not None:
-        ratio = short_circuit.current_a / sc_rated_current
-        i2r_w = resistive_loss_w(ratio * rated_current_a(rating_kva, hv_v, phases),
-                                 ratio * rated_current_a(rating_kva, lv_v, phases),
+        ratio = float(short_circuit.current_a / sc_rated_current)
+        i2r_w = resistive_loss_w(ratio * float(rated_current_a(rating_kva, hv_v, phases)),
+                                 ratio * float(rated_current_a(rating_kva, lv_v, phases)),
                                  resistance_hv_ohm, resistance_lv_ohm, phases)
     if i2r_w is None:
         i2r_w = short_circuit.power_w
@@ -124,16 +126,16 @@ def routine_test_figures(
     uz_ref = math.hypot(ur_ref, ux)
 
     # The circuit at the reference temperature: the short-circuit test as it would read there.
-    sc_ref = (short_circuit.side, uz_ref / 100.0 * sc_rated_v, sc_rated_current, load_loss_ref)
-    oc = (open_circuit.side, open_circuit.voltage_v, open_circuit.current_a, open_circuit.power_w)
-    circuit = circuit_from_tests(rating_kva, phases, hv_v, lv_v, oc, sc_ref, circuit_side)
+    sc_ref = (cast(Side, short_circuit.side), uz_ref / 100.0 * sc_rated_v, float(sc_rated_current), load_loss_ref)
+    oc = (cast(Side, open_circuit.side), open_circuit.voltage_v, open_circuit.current_a, open_circuit.power_w)
+    circuit = circuit_from_tests(rating_kva, phases, hv_v, lv_v, oc, sc_ref, cast(Side, circuit_side))
     return RoutineTestFigures(
         no_load_loss_w=float(open_circuit.power_w),
         no_load_current_pct=float(no_load_current_pct),
         load_loss_at_rated_current_w=float(load_loss_rated),
         i2r_at_rated_current_w=float(i2r_rated),
         load_loss_at_reference_w=load_loss_ref,
-        impedance_pct_at_test=uz_test,
+        impedance_pct_at_test=float(uz_test),
         impedance_pct=uz_ref,
         circuit=circuit,
         notes=tuple(notes),

@@ -218,10 +218,10 @@ class OfferArrays:
         )
         return cls(
             offer_ids=np.array([o.offer_id for o in ordered], dtype=np.int64),
-            prices=[o.unit_price for o in ordered],
-            p0_w=[o.no_load_loss_w for o in ordered],
-            pk_w=[o.load_loss_w for o in ordered],
-            paux_w=[o.aux_loss_w for o in ordered],
+            prices=np.array([o.unit_price for o in ordered], dtype=np.float64),
+            p0_w=np.array([o.no_load_loss_w for o in ordered], dtype=np.float64),
+            pk_w=np.array([o.load_loss_w for o in ordered], dtype=np.float64),
+            paux_w=np.array([o.aux_loss_w for o in ordered], dtype=np.float64),
         )
 
     def __len__(self) -> int:
@@ -767,7 +767,7 @@ def _rate_input_arrays(inputs: Mapping[str, Any]) -> tuple[dict[str, np.ndarray]
     except ValueError:
         raise InvalidInput("inputs", "arrays do not broadcast to one shape") from None
 
-    rate_limits = dict(low=-1.0, low_open=True, high=MAX_RATE_PER_YEAR)
+    rate_limits: dict[str, Any] = dict(low=-1.0, low_open=True, high=MAX_RATE_PER_YEAR)
     for name in ("energy_escalation", "discount_rate", "load_growth"):
         check_array_range(name, arrays[name], **rate_limits)
     for name in ("energy_price_per_kwh", "capacity_cost_per_kw_year", "carbon_cost_per_kwh"):
@@ -911,7 +911,7 @@ def present_worth_rates_fn(inputs: Mapping[str, float]) -> tuple[float, float, f
     missing = [name for name in RATE_INPUT_NAMES if name not in inputs]
     if missing:
         raise InvalidInput(missing[0], "is required by the present-worth rates")
-    kwargs = dict(inputs)
+    kwargs: dict[str, Any] = dict(inputs)
     kwargs["years"] = whole_number("years", kwargs["years"], low=1, high=MAX_YEARS)
     rates = rates_present_worth(**kwargs)
     return rates.no_load_rate_per_kw, rates.load_rate_per_kw, rates.aux_rate_per_kw

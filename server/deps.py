@@ -10,8 +10,8 @@ from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 
 from server.storage import generation
-from server.storage.generation import GenerationCache
 from server.storage.audit import set_actor
+from server.storage.generation import GenerationCache
 
 T = TypeVar("T")
 

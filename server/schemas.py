@@ -10,7 +10,16 @@ from datetime import date, datetime
 from typing import Annotated, Any, Literal
 
 from fastapi import Path, Query
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field, StringConstraints, ValidationInfo, field_validator, model_validator
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    ConfigDict,
+    Field,
+    StringConstraints,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
 
 # Upper bounds reject absurd values (a typo of several orders of magnitude), not real units:
 # the largest power transformers are around 1,500 MVA with load losses of a few MW.
@@ -714,11 +723,6 @@ class ImportProblem(BaseModel):
     rows: list[int]
     column: str | None = None
     message: str
-
-
-class ImportRefusedOut(BaseModel):
-    detail: str
-    problems: list[ImportProblem]
 
 
 # --- cost basis revisions: differences, preview, workings -----------------------------------

@@ -6,10 +6,8 @@ import re
 from functools import lru_cache
 from typing import Literal
 
-from pydantic import Field
-from pydantic import field_validator
+from pydantic import Field, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
-
 
 DEFAULT_SECRET = "development-only-secret-change-me"
 

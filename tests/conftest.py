@@ -16,8 +16,8 @@ from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, text
 
 from server.app import create_app
-from server.settings import Settings
 from server.security import hash_password, token_hash
+from server.settings import Settings
 from server.storage.migrate import upgrade
 from server.storage.models import ROLES, AuthSession, Base, User, utcnow
 

@@ -7,16 +7,15 @@ Revises: 0007
 Create Date: 2026-12-02 15:20:00
 
 """
-from typing import Sequence, Union
+from collections.abc import Sequence
 
-from alembic import op
 import sqlalchemy as sa
-
+from alembic import op
 
 revision: str = '0008'
-down_revision: Union[str, Sequence[str], None] = '0007'
-branch_labels: Union[str, Sequence[str], None] = None
-depends_on: Union[str, Sequence[str], None] = None
+down_revision: str | Sequence[str] | None = '0007'
+branch_labels: str | Sequence[str] | None = None
+depends_on: str | Sequence[str] | None = None
 
 # Reviews used to name a family of built-in tables; each table now has an id of its own.
 # A review of a family carries over to every table of that family as it stood then.

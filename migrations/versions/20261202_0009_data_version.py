@@ -6,17 +6,16 @@ Create Date: 2026-12-02 17:00:00
 
 """
 import secrets
+from collections.abc import Sequence
 from datetime import UTC, datetime
-from typing import Sequence, Union
 
-from alembic import op
 import sqlalchemy as sa
-
+from alembic import op
 
 revision: str = '0009'
-down_revision: Union[str, Sequence[str], None] = '0008'
-branch_labels: Union[str, Sequence[str], None] = None
-depends_on: Union[str, Sequence[str], None] = None
+down_revision: str | Sequence[str] | None = '0008'
+branch_labels: str | Sequence[str] | None = None
+depends_on: str | Sequence[str] | None = None
 
 
 def upgrade() -> None:

@@ -9,17 +9,16 @@ Revises: 0009
 Create Date: 2026-12-02 17:00:00
 
 """
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence, Union
 
-from alembic import op
 import sqlalchemy as sa
-
+from alembic import op
 
 revision: str = '0010'
-down_revision: Union[str, Sequence[str], None] = '0009'
-branch_labels: Union[str, Sequence[str], None] = None
-depends_on: Union[str, Sequence[str], None] = None
+down_revision: str | Sequence[str] | None = '0009'
+branch_labels: str | Sequence[str] | None = None
+depends_on: str | Sequence[str] | None = None
 
 # The queue library's tables live apart from the application's, so that nothing that walks the
 # application's tables (the model comparison, a TRUNCATE of every table) has to know about them,

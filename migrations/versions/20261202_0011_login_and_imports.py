@@ -19,16 +19,15 @@ Create Date: 2026-12-02 17:00:00
 """
 import hashlib
 import logging
-from typing import Sequence, Union
+from collections.abc import Sequence
 
-from alembic import op
 import sqlalchemy as sa
-
+from alembic import op
 
 revision: str = '0011'
-down_revision: Union[str, Sequence[str], None] = '0010'
-branch_labels: Union[str, Sequence[str], None] = None
-depends_on: Union[str, Sequence[str], None] = None
+down_revision: str | Sequence[str] | None = '0010'
+branch_labels: str | Sequence[str] | None = None
+depends_on: str | Sequence[str] | None = None
 
 log = logging.getLogger("alembic.runtime.migration")
 _ROWS_PER_BATCH = 500

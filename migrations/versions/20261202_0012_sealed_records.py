@@ -13,16 +13,15 @@ Revises: 0011
 Create Date: 2026-12-02 17:00:00
 
 """
-from typing import Sequence, Union
+from collections.abc import Sequence
 
-from alembic import op
 import sqlalchemy as sa
-
+from alembic import op
 
 revision: str = '0012'
-down_revision: Union[str, Sequence[str], None] = '0011'
-branch_labels: Union[str, Sequence[str], None] = None
-depends_on: Union[str, Sequence[str], None] = None
+down_revision: str | Sequence[str] | None = '0011'
+branch_labels: str | Sequence[str] | None = None
+depends_on: str | Sequence[str] | None = None
 
 # Every column of evaluation_records that no UPDATE may change (the reopen columns may be set once).
 _SEALED = ('id', 'lot_id', 'awarded_at', 'awarded_by', 'awarded_offer_id', 'software_version', 'inputs',

@@ -4,9 +4,19 @@ from fastapi import APIRouter
 from starlette.routing import Match
 from starlette.types import Scope
 
-from server.api import cost_bases, factory_tests, fleet, intake, load_shapes, offers, people, records, robustness, tenders
+from server.api import (
+    cost_bases,
+    factory_tests,
+    fleet,
+    intake,
+    load_shapes,
+    offers,
+    people,
+    records,
+    robustness,
+    tenders,
+)
 from server.api.responses import ERRORS
-
 
 
 class _PrefixRouter(APIRouter):

@@ -10,7 +10,6 @@ from server.deps import SessionDep
 from server.services import cost_bases as service
 from server.services import revisions
 
-
 router = APIRouter(prefix="/cost-bases", tags=["cost bases"])
 
 

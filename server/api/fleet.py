@@ -7,8 +7,8 @@ from typing import Annotated
 from fastapi import APIRouter, File, Form, Query, Response, UploadFile
 
 from server import schemas
-from server.auth import ANY_ROLE, PLANNER
 from server.api.responses import FILE_REFUSED
+from server.auth import ANY_ROLE, PLANNER
 from server.deps import SessionDep
 from server.services import fleet as service
 

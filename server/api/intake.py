@@ -7,12 +7,11 @@ from typing import Annotated
 from fastapi import APIRouter, File, Form, Query, Response, UploadFile
 
 from server import schemas
-from server.auth import ANY_ROLE, BUYER, PLANNER
 from server.api.responses import FILE_REFUSED
+from server.auth import ANY_ROLE, BUYER, PLANNER
 from server.deps import SessionDep
-from server.services import compliance, offer_imports
+from server.services import compliance, offer_imports, ranking
 from server.services.efficiency_curves import lot_efficiency_curves
-from server.services import ranking
 from server.services.tenders import get_lot
 
 router = APIRouter()

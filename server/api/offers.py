@@ -12,7 +12,6 @@ from server.services import offers as service
 from server.services import ranking
 from server.services.ranking import lot_ranking
 
-
 router = APIRouter(tags=["offers and ranking"])
 
 

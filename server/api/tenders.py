@@ -9,7 +9,6 @@ from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
 from server.services import tenders as service
 
-
 router = APIRouter(tags=["tenders"])
 
 

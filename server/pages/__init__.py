@@ -12,10 +12,23 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from server.auth import Requires
 from server.errors import ServiceError
-from server.pages import audit, awards, cost_bases, intake, limit_tables, lots, people, session, tenders
-from server.pages import load_shapes, loading, revisions
-from server.pages import certificates, fleet
-from server.pages import robustness
+from server.pages import (
+    audit,
+    awards,
+    certificates,
+    cost_bases,
+    fleet,
+    intake,
+    limit_tables,
+    load_shapes,
+    loading,
+    lots,
+    people,
+    revisions,
+    robustness,
+    session,
+    tenders,
+)
 from server.pages.templating import is_htmx, render
 
 router = APIRouter(include_in_schema=False)

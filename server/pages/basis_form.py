@@ -8,6 +8,7 @@ from typing import Any
 from pydantic_core import PydanticUndefined
 
 from server import schemas
+
 # The words of the boxes live with the service: the API's warnings name the inputs as the boxes do.
 from server.services.cost_bases import INPUT_WORDING, input_label
 

@@ -30,7 +30,6 @@ CERTIFICATE_BOXES = ("serial_number", "test_date", "laboratory", "conductor", "r
 STANDARD_NAMES = {"iec": "IEC 60076-1", "ieee": "IEEE C57.12.00"}
 SIDE_CHOICES = [("hv", "HV winding"), ("lv", "LV winding")]
 CONDUCTOR_CHOICES = [("copper", "Copper"), ("aluminium", "Aluminium")]
-STANDARD_CHOICES = [("iec", "IEC 60076-1"), ("ieee", "IEEE C57.12.00")]
 
 # Loadings the analysis chart draws [pu of the rating]: 0 to 1.5 in steps of 0.05.
 CURVE_LOADINGS_PU = [round(0.05 * k, 2) for k in range(31)]

@@ -15,7 +15,8 @@ from server.errors import Conflict, InvalidField
 from server.pages import views
 from server.pages.forms import FormDep, FormListsDep, field_errors
 from server.pages.templating import render, see_other
-from server.services import pages_support, users as service
+from server.services import pages_support
+from server.services import users as service
 from server.storage.models import ROLES
 
 router = APIRouter()

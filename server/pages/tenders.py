@@ -15,7 +15,8 @@ from server.errors import Conflict, InvalidField
 from server.pages import views
 from server.pages.forms import FormDep, FormListsDep, FormValues, basis_choice, create_data, field_errors
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
-from server.services import pages_intake, tenders as service
+from server.services import pages_intake
+from server.services import tenders as service
 
 router = APIRouter()
 

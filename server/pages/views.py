@@ -13,8 +13,8 @@ from sqlalchemy.orm import Session
 
 from server import schemas
 from server.errors import Conflict, InvalidField
-from server.pages.basis_form import chosen_method, input_label, method_boxes, price_path_coverage
 from server.pages import certificate_views, intake_views, planning_views
+from server.pages.basis_form import chosen_method, input_label, method_boxes, price_path_coverage
 from server.pages.charts import toc_breakdown_chart
 from server.pages.forms import field_errors, full_inputs
 from server.pages.templating import input_value

@@ -16,11 +16,11 @@ from domain.rates import CapitalisationRates
 from domain.toc import OfferLosses, rank_offers
 from server import schemas
 from server.errors import Conflict, InvalidField
+from server.services.common import commit, get_or_404
 from server.services.loading import lot_inputs, lot_rates
 from server.services.locks import active_record, ensure_open
 from server.services.ranking import assessed_offers
 from server.services.robustness import award_robustness
-from server.services.common import commit, get_or_404
 from server.services.tenders import get_lot
 from server.settings import get_settings
 from server.storage import audit

@@ -18,7 +18,6 @@ from domain.limits import (
     assess,
     check_offer,
     excluded_on_unverified,
-    is_compliant,
 )
 from domain.plausibility import PlausibilityWarning, offer_warnings, price_warnings
 from domain.rules import TOLERANCE_RULES, unverified
@@ -44,7 +43,10 @@ def rule_statuses(session: Session) -> dict[str, str]:
 
 def user_table(row: UserLimitTable) -> LimitTable:
     rows = sorted(row.rows, key=lambda r: r["rating_kva"])
-    column = (lambda name: tuple(float(r.get(name) or 0.0) for r in rows))
+
+    def column(name: str) -> tuple[float, ...]:
+        return tuple(float(r.get(name) or 0.0) for r in rows)
+
     return LimitTable(
         key=row.key, name=row.name, source=row.source, status=row.status, kind=row.kind,
         ratings_kva=tuple(float(r["rating_kva"]) for r in rows),

@@ -23,8 +23,8 @@ from domain.load_shapes import (
 from server import schemas
 from server.errors import ImportRefused, InvalidField
 from server.services.common import commit, get_or_404
-from server.tabular import read_table, rows_text
 from server.storage.models import LoadShape
+from server.tabular import read_table, rows_text
 
 UNITS = {"pu", "kw", "kva"}
 VALUE_COLUMNS = ("load", "kw", "kva", "pu")

@@ -8,8 +8,8 @@ from sqlalchemy.orm import Session
 from domain.toc import OfferLosses, rank_offers
 from server import schemas
 from server.errors import Conflict
-from server.services.compliance import OfferAssessment, assess_offers, warning_out
 from server.exports import ranking_xlsx
+from server.services.compliance import OfferAssessment, assess_offers, warning_out
 from server.services.loading import lot_inputs, lot_rates
 from server.services.tenders import get_lot
 from server.storage.generation import GenerationCache

@@ -88,13 +88,6 @@ def set_password(session: Session, username: str, password: str) -> User:
     return user
 
 
-def set_roles(session: Session, username: str, roles: list[str]) -> User:
-    user = get_user_by_name(session, username)
-    user.roles = _check_roles(roles)
-    commit(session, "user")
-    return user
-
-
 def disable_user(session: Session, username: str) -> User:
     user = get_user_by_name(session, username)
     user.disabled = True

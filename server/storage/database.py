@@ -6,17 +6,17 @@ import asyncio
 import os
 from collections import namedtuple
 from collections.abc import Callable, Iterator
-from typing import Any
 from contextlib import contextmanager
 from datetime import UTC, datetime
+from typing import Any
 
 import psycopg
 from psycopg_pool import AsyncConnectionPool
 from sqlalchemy import DateTime, Engine, create_engine, event
 from sqlalchemy.dialects import sqlite
 from sqlalchemy.engine import Compiled
-from sqlalchemy.sql.expression import Executable
 from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.sql.expression import Executable
 
 from server.storage import audit  # noqa: F401  (registers the audit hook on every session)
 from server.storage.generation import database_key

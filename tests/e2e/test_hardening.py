@@ -132,8 +132,8 @@ def test_control_characters_in_addresses_and_forms_are_refused(client):
 
 def test_control_characters_in_uploaded_cells_are_removed(client):
     _, tender_id, lot_id = f.setup_lot(client)
-    content = ("lot,bidder,unit_price,no_load_loss_w,load_loss_w,impedance_pct\n"
-               "400 kVA ground-mounted,Ev\x07il\x00 Co,12000,430,4600,4\n").encode()
+    content = (b"lot,bidder,unit_price,no_load_loss_w,load_loss_w,impedance_pct\n"
+               b"400 kVA ground-mounted,Ev\x07il\x00 Co,12000,430,4600,4\n")
     staged = client.post(f"/api/v1/tenders/{tender_id}/offer-imports",
                          files={"file": ("offers.csv", content, "text/csv")})
     assert staged.status_code == 201, staged.text

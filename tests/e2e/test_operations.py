@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import pytest
-
 import json
 import os
 import re
@@ -17,6 +15,7 @@ import time
 import urllib.request
 from pathlib import Path
 
+import pytest
 from fastapi.testclient import TestClient
 
 from server import cli

@@ -281,7 +281,7 @@ def test_buyers_edit_the_contract_terms_on_the_tender_page(page_client):
     tender_id, lot_id = _awarded_lot(page_client)
     csrf = log_in(page_client, "buyer")
     page = page_client.get(f"/tenders/{tender_id}").text
-    assert "Contract terms for the factory tests" in page and 'action="/tenders/%d/contract-terms"' % tender_id in page
+    assert "Contract terms for the factory tests" in page and f'action="/tenders/{tender_id}/contract-terms"' in page
     version = page_client.get(f"/api/v1/tenders/{tender_id}", headers=API).json()["version"]
     bad = page_client.post(f"/tenders/{tender_id}/contract-terms", headers=HX, data={
         "csrf_token": csrf, "version": version, "tolerance_standard": "ieee", "penalty_multiplier": "500"})

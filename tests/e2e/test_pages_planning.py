@@ -327,7 +327,7 @@ def test_the_revisions_list_who_and_when_and_links_each_revision(page_client):
     for revision in (1, 2):
         assert f'href="/cost-bases/{basis_id}/revisions/{revision}/workings"' in table
         assert f'hx-get="/cost-bases/{basis_id}/revisions/{revision}/preview"' in table
-    assert 'action="/cost-bases/%d/revisions/compare"' % basis_id in table
+    assert f'action="/cost-bases/{basis_id}/revisions/compare"' in table
 
 
 def test_comparing_two_revisions_shows_the_changed_field(page_client):

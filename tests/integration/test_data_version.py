@@ -20,7 +20,7 @@ from server.storage.database import Database
 from server.storage.generation import NO_VERSION, data_version
 from server.storage.models import Offer, utcnow
 from tests import factories as f
-from tests.conftest import TEST_PASSWORD, auth, make_client
+from tests.conftest import TEST_PASSWORD, auth
 
 
 def _version(url: str) -> tuple[int, int]:

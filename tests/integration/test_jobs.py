@@ -8,9 +8,9 @@ import subprocess
 import sys
 import threading
 import time
-from datetime import timedelta
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from datetime import timedelta
 from pathlib import Path
 
 import pytest

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-import pytest
-
 from dataclasses import replace
+
+import pytest
 
 from domain.limits import (
     BUILT_IN,

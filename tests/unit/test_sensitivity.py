@@ -16,9 +16,9 @@ from domain import (
     OfferLosses,
     rank_offers,
     rates_direct,
+    sensitivity,
     total_owning_cost,
 )
-from domain import sensitivity
 from domain.rates import rates_present_worth
 from domain.sensitivity import (
     OfferArrays,
@@ -34,7 +34,6 @@ from domain.sensitivity import (
     tornado,
     winner_grid,
 )
-
 from server.services.awards import rank_frozen
 
 # Present-worth inputs also used by test_rates.py (invented, typical of a distribution utility).
