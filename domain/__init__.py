@@ -22,6 +22,7 @@ from domain.finance import present_worth_factor, present_worth_of_growing_series
 from domain.loading import load_factor, loss_factor, loss_factor_from_load_factor, rms_loading
 from domain.rates import (
     CapitalisationRates,
+    fixed_charge_rate_terms,
     present_worth_table,
     rates_direct,
     rates_fixed_charge_rate,
@@ -56,6 +57,7 @@ __all__ = [
     "rank_offers",
     "rates_direct",
     "rates_fixed_charge_rate",
+    "fixed_charge_rate_terms",
     "rates_present_worth",
     "rms_loading",
     "total_owning_cost",

@@ -22,6 +22,7 @@ __all__ = [
     "rates_present_worth",
     "present_worth_table",
     "rates_fixed_charge_rate",
+    "fixed_charge_rate_terms",
     "carbon_cost_per_kwh",
 ]
 
@@ -307,7 +308,12 @@ def carbon_cost_per_kwh(carbon_price_per_t: float, emission_factor_t_per_mwh: fl
     return price * factor / 1000.0
 
 
-def rates_fixed_charge_rate(
+# The three loss kinds of the fixed-charge-rate method and the three parts of each rate.
+FCR_RATES = (("A", "no_load"), ("B", "load"), ("C", "aux"))
+FCR_COMPONENTS = ("capacity", "energy", "carbon")
+
+
+def fixed_charge_rate_terms(
     *,
     system_capacity_cost_per_kw_year: float,
     energy_cost_per_kwh: float,
@@ -317,8 +323,9 @@ def rates_fixed_charge_rate(
     loss_factor: float,
     cooling_hours_per_year: float = 0.0,
     hours_per_year: float = 8760.0,
-) -> CapitalisationRates:
-    """Capitalisation rates by the fixed-charge-rate (levelised annual cost) method.
+    carbon_cost_per_kwh: float = 0.0,
+) -> dict[tuple[str, str], float]:
+    """Each term of A, B and C by the fixed-charge-rate (levelised annual cost) method.
 
     Parameters
     ----------
@@ -338,17 +345,22 @@ def rates_fixed_charge_rate(
         Hours a year the cooling equipment runs [h], 0..hours_per_year. Default 0.
     hours_per_year : float, optional
         Hours energised per year [h], 0 < h <= 8784. Default 8760.
+    carbon_cost_per_kwh : float, optional
+        Cost of the emissions of one kWh [currency/kWh], >= 0 (``carbon_cost_per_kwh``). Default 0.
 
     Returns
     -------
-    CapitalisationRates
-        A, B, C [currency/kW].
+    dict
+        ``{(rate, component): value}`` for rate in A, B, C and component in capacity, energy,
+        carbon [currency/kW]; a rate is the sum of its three terms.
 
     Notes
     -----
-    A = (SC + EC * hours) / FCR,
-    B = (SC * RF + EC * hours * LsF) * PL**2 / FCR,
-    C = (SC * RF + EC * cooling_hours) / FCR.
+    With CC the carbon cost per kWh and h the hours energised:
+
+    A = SC / FCR + EC h / FCR + CC h / FCR,
+    B = (SC RF + EC h LsF + CC h LsF) PL**2 / FCR,
+    C = (SC RF + EC cooling_hours + CC cooling_hours) / FCR.
 
     References
     ----------
@@ -366,8 +378,56 @@ def rates_fixed_charge_rate(
     lsf = finite_scalar("loss_factor", loss_factor, low=0.0, high=1.0)
     hours = finite_scalar("hours_per_year", hours_per_year, low=0.0, low_open=True, high=MAX_HOURS_PER_YEAR)
     cooling_hours = finite_scalar("cooling_hours_per_year", cooling_hours_per_year, low=0.0, high=hours)
-    return CapitalisationRates(
-        no_load_rate_per_kw=(sc + ec * hours) / fcr,
-        load_rate_per_kw=(sc * rf + ec * hours * lsf) * pl**2 / fcr,
-        aux_rate_per_kw=(sc * rf + ec * cooling_hours) / fcr,
+    carbon = finite_scalar("carbon_cost_per_kwh", carbon_cost_per_kwh, low=0.0)
+    # Per rate: the kW of capacity it holds and the hours of energy it burns, per kW of loss.
+    capacity_kw = {"A": 1.0, "B": rf * pl**2, "C": rf}
+    energy_h = {"A": hours, "B": hours * lsf * pl**2, "C": cooling_hours}
+    terms: dict[tuple[str, str], float] = {}
+    for rate, _ in FCR_RATES:
+        terms[(rate, "capacity")] = sc * capacity_kw[rate] / fcr
+        terms[(rate, "energy")] = ec * energy_h[rate] / fcr
+        terms[(rate, "carbon")] = carbon * energy_h[rate] / fcr
+    return terms
+
+
+def rates_fixed_charge_rate(
+    *,
+    system_capacity_cost_per_kw_year: float,
+    energy_cost_per_kwh: float,
+    fixed_charge_rate: float,
+    responsibility_factor: float,
+    peak_load_pu: float,
+    loss_factor: float,
+    cooling_hours_per_year: float = 0.0,
+    hours_per_year: float = 8760.0,
+    carbon_cost_per_kwh: float = 0.0,
+) -> CapitalisationRates:
+    """Capitalisation rates by the fixed-charge-rate (levelised annual cost) method.
+
+    Parameters
+    ----------
+    As ``fixed_charge_rate_terms``.
+
+    Returns
+    -------
+    CapitalisationRates
+        A, B, C [currency/kW]: each the sum of its terms from ``fixed_charge_rate_terms``.
+
+    Notes
+    -----
+    A = (SC + EC * hours) / FCR,
+    B = (SC * RF + EC * hours * LsF) * PL**2 / FCR,
+    C = (SC * RF + EC * cooling_hours) / FCR (carbon adds to EC).
+
+    References
+    ----------
+    As ``fixed_charge_rate_terms``.
+    """
+    terms = fixed_charge_rate_terms(
+        system_capacity_cost_per_kw_year=system_capacity_cost_per_kw_year, energy_cost_per_kwh=energy_cost_per_kwh,
+        fixed_charge_rate=fixed_charge_rate, responsibility_factor=responsibility_factor,
+        peak_load_pu=peak_load_pu, loss_factor=loss_factor, cooling_hours_per_year=cooling_hours_per_year,
+        hours_per_year=hours_per_year, carbon_cost_per_kwh=carbon_cost_per_kwh,
     )
+    no_load, load, aux = (sum(terms[(rate, part)] for part in FCR_COMPONENTS) for rate, _ in FCR_RATES)
+    return CapitalisationRates(no_load_rate_per_kw=no_load, load_rate_per_kw=load, aux_rate_per_kw=aux)

@@ -77,6 +77,20 @@ def present_worth_arguments(inputs: schemas.PresentWorthInputs) -> dict:
     }
 
 
+def fixed_charge_rate_arguments(inputs: schemas.FixedChargeRateInputs) -> dict:
+    """The keyword arguments of ``domain.rates`` fixed-charge-rate functions (carbon apart): percentages as
+    fractions."""
+    return {
+        "system_capacity_cost_per_kw_year": inputs.system_capacity_cost_per_kw_year,
+        "energy_cost_per_kwh": inputs.energy_cost_per_kwh,
+        "fixed_charge_rate": inputs.fixed_charge_rate_pct / 100,
+        "responsibility_factor": inputs.responsibility_factor,
+        "peak_load_pu": inputs.peak_load_pu,
+        "loss_factor": inputs.loss_factor,
+        "cooling_hours_per_year": inputs.cooling_hours_per_year,
+    }
+
+
 def rates_for(inputs: schemas.DirectInputs | schemas.PresentWorthInputs | schemas.FixedChargeRateInputs) -> CapitalisationRates:
     """Derive A, B, C from validated inputs; percentages become fractions here."""
     try:
@@ -85,14 +99,8 @@ def rates_for(inputs: schemas.DirectInputs | schemas.PresentWorthInputs | schema
         if isinstance(inputs, schemas.PresentWorthInputs):
             return rates_present_worth(**present_worth_arguments(inputs))
         return rates_fixed_charge_rate(
-            system_capacity_cost_per_kw_year=inputs.system_capacity_cost_per_kw_year,
-            energy_cost_per_kwh=inputs.energy_cost_per_kwh
-            + carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
-            fixed_charge_rate=inputs.fixed_charge_rate_pct / 100,
-            responsibility_factor=inputs.responsibility_factor,
-            peak_load_pu=inputs.peak_load_pu,
-            loss_factor=inputs.loss_factor,
-            cooling_hours_per_year=inputs.cooling_hours_per_year,
+            **fixed_charge_rate_arguments(inputs),
+            carbon_cost_per_kwh=carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh),
         )
     except InvalidInput as exc:
         raise InvalidField(_api_field(exc.field), exc.message) from exc

@@ -5,10 +5,16 @@ from __future__ import annotations
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from domain.rates import carbon_cost_per_kwh, present_worth_table
+from domain.rates import carbon_cost_per_kwh, fixed_charge_rate_terms, present_worth_table
 from server import schemas
 from server.exports import write_csv
-from server.services.cost_bases import get_cost_basis, get_revision, parse_inputs, present_worth_arguments
+from server.services.cost_bases import (
+    fixed_charge_rate_arguments,
+    get_cost_basis,
+    get_revision,
+    parse_inputs,
+    present_worth_arguments,
+)
 from server.services.locks import active_record
 from server.services.ranking import rank_lot
 from server.storage.models import CostBasisRevision, Tender
@@ -80,6 +86,18 @@ CONVENTIONS = [
     "A, B and C are present values per kW of guaranteed loss.",
 ]
 
+# How each fixed-charge-rate term reads on the workings page (SC, EC, RF, PL, LsF as the method names them).
+_FCR_FORMULAS = {
+    ("A", "capacity"): "SC / FCR",
+    ("A", "energy"): "EC x 8760 / FCR",
+    ("A", "carbon"): "carbon x 8760 / FCR",
+    ("B", "capacity"): "SC x RF x PL^2 / FCR",
+    ("B", "energy"): "EC x 8760 x LsF x PL^2 / FCR",
+    ("B", "carbon"): "carbon x 8760 x LsF x PL^2 / FCR",
+    ("C", "capacity"): "SC x RF / FCR",
+    ("C", "energy"): "EC x cooling hours / FCR",
+    ("C", "carbon"): "carbon x cooling hours / FCR",
+}
 _COMPONENT_FORMULAS = {
     ("A", "capacity"): "sum SC / (1+i)^t",
     ("A", "energy"): "sum price_t x hours / (1+i)^t",
@@ -118,23 +136,11 @@ def workings(session: Session, cost_basis_id: int, revision: int) -> schemas.Wor
         columns = TABLE_COLUMNS
         table = [[float(year_table[c][k]) for c in columns] for k in range(inputs.years)]
     elif rev.method == "fixed_charge_rate":
-        carbon = carbon_cost_per_kwh(inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh)
-        fcr = inputs.fixed_charge_rate_pct / 100
-        sc, ec, rf, pl, lsf = (inputs.system_capacity_cost_per_kw_year, inputs.energy_cost_per_kwh,
-                               inputs.responsibility_factor, inputs.peak_load_pu, inputs.loss_factor)
-        hours, cooling = 8760.0, inputs.cooling_hours_per_year
-        for rate, component, value, formula in (
-            ("A", "capacity", sc / fcr, "SC / FCR"),
-            ("A", "energy", ec * hours / fcr, "EC x 8760 / FCR"),
-            ("A", "carbon", carbon * hours / fcr, "carbon x 8760 / FCR"),
-            ("B", "capacity", sc * rf * pl**2 / fcr, "SC x RF x PL^2 / FCR"),
-            ("B", "energy", ec * hours * lsf * pl**2 / fcr, "EC x 8760 x LsF x PL^2 / FCR"),
-            ("B", "carbon", carbon * hours * lsf * pl**2 / fcr, "carbon x 8760 x LsF x PL^2 / FCR"),
-            ("C", "capacity", sc * rf / fcr, "SC x RF / FCR"),
-            ("C", "energy", ec * cooling / fcr, "EC x cooling hours / FCR"),
-            ("C", "carbon", carbon * cooling / fcr, "carbon x cooling hours / FCR"),
-        ):
-            terms.append(schemas.RateTermOut(rate=rate, component=component, value_per_kw=value, formula=formula))
+        values = fixed_charge_rate_terms(**fixed_charge_rate_arguments(inputs), carbon_cost_per_kwh=carbon_cost_per_kwh(
+            inputs.carbon_price_per_t, inputs.emission_factor_t_per_mwh))
+        for (rate, component), value in values.items():
+            terms.append(schemas.RateTermOut(rate=rate, component=component, value_per_kw=value,
+                                             formula=_FCR_FORMULAS[(rate, component)]))
     else:
         for rate, field in (("A", "no_load_rate_per_kw"), ("B", "load_rate_per_kw"), ("C", "aux_rate_per_kw")):
             terms.append(schemas.RateTermOut(rate=rate, component="entered", value_per_kw=getattr(rev, field),

@@ -10,6 +10,7 @@ from numpy.testing import assert_allclose
 from domain import (
     CapitalisationRates,
     InvalidInput,
+    fixed_charge_rate_terms,
     present_worth_factor,
     present_worth_of_growing_series,
     present_worth_table,
@@ -147,6 +148,25 @@ def test_fixed_charge_rate_hand_computed():
     assert_allclose(rates.no_load_rate_per_kw, 538 / 0.12, rtol=1e-12)
     assert_allclose(rates.load_rate_per_kw, 1180.8, rtol=1e-12)
     assert_allclose(rates.aux_rate_per_kw, 190 / 0.12, rtol=1e-12)
+
+
+def test_fixed_charge_rate_terms_sum_to_the_rates_with_carbon_as_energy():
+    # Hand computed on the inputs above with carbon 0.02 /kWh: the carbon terms are the energy
+    # terms at 0.02 instead of 0.05, and each rate is the sum of its three terms, so moving
+    # carbon into the energy cost gives the same rates (common practice, no source).
+    base = dict(system_capacity_cost_per_kw_year=100.0, fixed_charge_rate=0.12, responsibility_factor=0.9,
+                peak_load_pu=0.8, loss_factor=0.3, cooling_hours_per_year=2000.0)
+    terms = fixed_charge_rate_terms(**base, energy_cost_per_kwh=0.05, carbon_cost_per_kwh=0.02)
+    assert_allclose(terms[("A", "capacity")], 100 / 0.12, rtol=1e-15)
+    assert_allclose(terms[("A", "carbon")], 0.02 * 8760 / 0.12, rtol=1e-15)
+    assert_allclose(terms[("B", "energy")], 0.05 * 8760 * 0.3 * 0.64 / 0.12, rtol=1e-15)
+    assert_allclose(terms[("C", "carbon")], 0.02 * 2000 / 0.12, rtol=1e-15)
+    split = rates_fixed_charge_rate(**base, energy_cost_per_kwh=0.05, carbon_cost_per_kwh=0.02)
+    folded = rates_fixed_charge_rate(**base, energy_cost_per_kwh=0.07)
+    for rate, field in (("A", "no_load_rate_per_kw"), ("B", "load_rate_per_kw"), ("C", "aux_rate_per_kw")):
+        total = sum(value for (r, _), value in terms.items() if r == rate)
+        assert_allclose(getattr(split, field), total, rtol=1e-15)
+        assert_allclose(getattr(split, field), getattr(folded, field), rtol=1e-14)
 
 
 def test_fixed_charge_rate_default_has_no_cooling_energy():
