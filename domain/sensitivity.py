@@ -48,7 +48,7 @@ from domain.rates import (
     CapitalisationRates,
     rates_present_worth,
 )
-from domain.toc import OfferLosses
+from domain.toc import OfferLosses, toc_terms
 
 __all__ = [
     "OfferArrays",
@@ -249,7 +249,7 @@ class OfferArrays:
         a = np.asarray(no_load_rate_per_kw, dtype=float)[..., None]
         b = np.asarray(load_rate_per_kw, dtype=float)[..., None]
         c = np.asarray(aux_rate_per_kw, dtype=float)[..., None]
-        return self.prices + a * self.p0_w / 1000.0 + b * self.pk_w / 1000.0 + c * self.paux_w / 1000.0
+        return toc_terms(self.prices, self.p0_w, self.pk_w, self.paux_w, a, b, c)[3]
 
 
 def _need_offers(offers: OfferArrays, minimum: int, field: str = "offers") -> None:

@@ -18,6 +18,7 @@ from domain.errors import InvalidInput
 from domain.rates import CapitalisationRates
 
 __all__ = [
+    "toc_terms",
     "OfferLosses",
     "RankedOffer",
     "TocBreakdown",
@@ -106,6 +107,45 @@ class TocBreakdown(NamedTuple):
     toc_per_unit: Any
 
 
+def toc_terms(
+    unit_price: Any,
+    no_load_loss_w: Any,
+    load_loss_w: Any,
+    aux_loss_w: Any,
+    no_load_rate_per_kw: Any,
+    load_rate_per_kw: Any,
+    aux_rate_per_kw: Any,
+) -> tuple[Any, Any, Any, Any]:
+    """The capitalised losses and the TOC per unit, unchecked: the one expression every tool evaluates.
+
+    Parameters
+    ----------
+    unit_price, no_load_loss_w, load_loss_w, aux_loss_w : array_like
+        Price [currency], guaranteed P0, Pk, Paux [W], already checked by the caller.
+    no_load_rate_per_kw, load_rate_per_kw, aux_rate_per_kw : array_like
+        A, B, C [currency/kW], broadcasting against the offers.
+
+    Returns
+    -------
+    tuple
+        (A P0 / 1000, B Pk / 1000, C Paux / 1000, TOC) [currency], broadcast.
+
+    Notes
+    -----
+    TOC = price + A P0 / 1000 + B Pk / 1000 + C Paux / 1000, added left to right, so
+    ``total_owning_cost`` and the robustness tools (``domain.sensitivity.OfferArrays.toc``)
+    give the same number bit for bit and agree on exact ties.
+
+    References
+    ----------
+    As ``total_owning_cost``.
+    """
+    no_load = no_load_rate_per_kw * no_load_loss_w / 1000.0
+    load = load_rate_per_kw * load_loss_w / 1000.0
+    aux = aux_rate_per_kw * aux_loss_w / 1000.0
+    return no_load, load, aux, unit_price + no_load + load + aux
+
+
 def total_owning_cost(
     unit_price: Any,
     no_load_loss_w: Any,
@@ -153,10 +193,8 @@ def total_owning_cost(
     check_array_range("load_loss_w", pk, low=0.0)
     check_array_range("aux_loss_w", paux, low=0.0)
 
-    no_load = rates.no_load_rate_per_kw * p0 / 1000.0
-    load = rates.load_rate_per_kw * pk / 1000.0
-    aux = rates.aux_rate_per_kw * paux / 1000.0
-    toc = price + no_load + load + aux
+    no_load, load, aux, toc = toc_terms(price, p0, pk, paux, rates.no_load_rate_per_kw, rates.load_rate_per_kw,
+                                        rates.aux_rate_per_kw)
     shape = toc.shape
     return TocBreakdown(
         capitalised_no_load=as_output(np.broadcast_to(no_load, shape)),
