@@ -18,7 +18,7 @@ Conventions kept by every module:
 
 from domain.efficiency import efficiency, loading_of_maximum_efficiency, peak_efficiency_index
 from domain.errors import DomainError, InvalidInput
-from domain.finance import present_worth_factor, present_worth_of_growing_series
+from domain.finance import geometric_sum_from_log, present_worth_factor, present_worth_of_growing_series
 from domain.loading import load_factor, loss_factor, loss_factor_from_load_factor, rms_loading
 from domain.rates import (
     CapitalisationRates,
@@ -53,6 +53,7 @@ __all__ = [
     "peak_efficiency_index",
     "present_worth_factor",
     "present_worth_of_growing_series",
+    "geometric_sum_from_log",
     "present_worth_table",
     "rank_offers",
     "rates_direct",

@@ -12,7 +12,7 @@ import numpy as np
 
 from domain._checks import as_output, check_array_range, float_array, whole_number
 
-__all__ = ["present_worth_factor", "present_worth_of_growing_series"]
+__all__ = ["geometric_sum_from_log", "present_worth_factor", "present_worth_of_growing_series"]
 
 # Bound on the term-by-term sum: far beyond any asset life, small enough to stay cheap.
 MAX_SERIES_YEARS = 1000
@@ -56,6 +56,40 @@ def present_worth_factor(discount_rate: Any, years: Any) -> float | np.ndarray:
     return as_output(np.where(i == 0.0, n, level))
 
 
+def geometric_sum_from_log(years: Any, log_ratio: Any) -> np.ndarray:
+    """Sum of r**k over k = 0..n-1, given ln r: the closed form every present worth here uses, unchecked.
+
+    Parameters
+    ----------
+    years : array_like
+        Number of terms n [years], >= 0 (checked by the caller).
+    log_ratio : array_like
+        ln r, the natural log of the ratio between one term and the one before; broadcast
+        against ``years``.
+
+    Returns
+    -------
+    numpy.ndarray
+        (r**n - 1) / (r - 1), or n when r is 1.
+
+    Notes
+    -----
+    Evaluated as expm1(n ln r) / expm1(ln r), which keeps its digits as r nears 1 (growth
+    close to the discount rate). Below |ln r| = 2**-60 every r**k (k below a few hundred)
+    is 1 to within an ulp, so the sum is n; the quotient would lose digits there as ln r
+    nears the subnormals.
+
+    References
+    ----------
+    Standard finance identity (geometric series); the expm1 form is common numerical practice.
+    """
+    years = np.asarray(years, dtype=float)
+    log_ratio = np.asarray(log_ratio, dtype=float)
+    near_one = np.abs(log_ratio) < 2.0**-60
+    safe = np.where(near_one, 1.0, log_ratio)
+    return np.where(near_one, years, np.expm1(years * safe) / np.expm1(safe))
+
+
 def present_worth_of_growing_series(discount_rate: Any, years: int, growth: Any = 0.0) -> float | np.ndarray:
     """Present worth of a yearly amount that starts at 1 and grows geometrically.
 
@@ -64,8 +98,7 @@ def present_worth_of_growing_series(discount_rate: Any, years: int, growth: Any 
     discount_rate : float or array_like
         Discount rate i [fraction per year], i > -1.
     years : int
-        Number of yearly payments n [years], a whole number 1..1000 (scalar;
-        the sum is taken term by term).
+        Number of yearly payments n [years], a whole number 1..1000 (scalar).
     growth : float or array_like, optional
         Growth rate g of the yearly amount [fraction per year], g > -1;
         broadcast against ``discount_rate``. Default 0 (level series).
@@ -79,8 +112,8 @@ def present_worth_of_growing_series(discount_rate: Any, years: int, growth: Any 
     Notes
     -----
     PW = sum over t = 1..n of (1 + g)**(t - 1) / (1 + i)**t.
-    The sum is taken term by term (no closed form), so g == i needs no special
-    case; with g = 0 it equals ``present_worth_factor(i, n)``.
+    = ((1 + g) / (1 + i))**n - 1) / (g - i) in closed form (``geometric_sum_from_log``), so
+    g == i gives n / (1 + i); with g = 0 it equals ``present_worth_factor(i, n)``.
 
     References
     ----------
@@ -91,7 +124,5 @@ def present_worth_of_growing_series(discount_rate: Any, years: int, growth: Any 
     n = whole_number("years", years, low=1, high=MAX_SERIES_YEARS)
     check_array_range("discount_rate", i, low=-1.0, low_open=True)
     check_array_range("growth", g, low=-1.0, low_open=True)
-    t = np.arange(1, n + 1, dtype=float)
-    i, g = np.broadcast_arrays(i, g)
-    terms = np.power(1.0 + g[..., None], t - 1.0) / np.power(1.0 + i[..., None], t)
-    return as_output(terms.sum(axis=-1))
+    log_discount = np.log1p(i)
+    return as_output(np.exp(-log_discount) * geometric_sum_from_log(float(n), np.log1p(g) - log_discount))

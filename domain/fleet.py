@@ -33,6 +33,7 @@ import numpy as np
 
 from domain._checks import as_output, check_array_range, finite_scalar, float_array, whole_number
 from domain.errors import InvalidInput
+from domain.finance import geometric_sum_from_log
 from domain.limits import BUILT_IN, LimitTable
 from domain.rates import MAX_HOURS_PER_YEAR, MAX_PEAK_LOAD_PU, MAX_RATE_PER_YEAR, MAX_YEARS, carbon_cost_per_kwh
 
@@ -821,10 +822,8 @@ def growing_annuity_present_worth(discount_rate: Any, growth: Any, years: Any) -
     Notes
     -----
     PW = sum over t = 1..n of (1 + growth)**(t - 1) / (1 + i)**t
-       = ((1 + d)**n - 1) / (d * (1 + i)) with d = (growth - i) / (1 + i),
-    evaluated as expm1(n * log1p(d)) / (d * (1 + i)) to keep precision when
-    growth is close to i; when growth == i, PW = n / (1 + i). Equals
-    ``domain.finance.present_worth_of_growing_series`` (which sums term by term).
+    in closed form by ``domain.finance.geometric_sum_from_log`` (the one formula that
+    ``present_worth_of_growing_series`` also uses); years need not be whole here.
 
     References
     ----------
@@ -836,10 +835,8 @@ def growing_annuity_present_worth(discount_rate: Any, growth: Any, years: Any) -
     check_array_range("discount_rate", i, low=-1.0, low_open=True)
     check_array_range("growth", g, low=-1.0, low_open=True)
     check_array_range("years", n, low=0.0)
-    d = (g - i) / (1.0 + i)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        general = np.expm1(n * np.log1p(d)) / (d * (1.0 + i))
-    return as_output(np.where(d == 0.0, n / (1.0 + i), general))
+    log_discount = np.log1p(i)
+    return as_output(np.exp(-log_discount) * geometric_sum_from_log(n, np.log1p(g) - log_discount))
 
 
 # --------------------------------------------------------------------------- shortlist

@@ -40,6 +40,7 @@ import numpy as np
 
 from domain._checks import as_output, check_array_range, finite_scalar, float_array, whole_number
 from domain.errors import DomainError, InvalidInput
+from domain.finance import geometric_sum_from_log
 from domain.rates import (
     MAX_HOURS_PER_YEAR,
     MAX_PEAK_LOAD_PU,
@@ -789,15 +790,6 @@ def _rate_input_arrays(inputs: Mapping[str, Any]) -> tuple[dict[str, np.ndarray]
     return arrays, shape
 
 
-def _geometric_sums(years: np.ndarray, log_ratio: np.ndarray) -> np.ndarray:
-    """Sum of r^k over k = 0..n-1 for whole n >= 1, given log_ratio = ln r (see the vectorised rates)."""
-    # Below 2^-60 every r^k (k < n <= MAX_YEARS) is 1 to within half an ulp, so
-    # the sum is n; the quotient would lose digits as ln r nears the subnormals.
-    near_one = np.abs(log_ratio) < 2.0**-60
-    safe = np.where(near_one, 1.0, log_ratio)
-    return np.where(near_one, years, np.expm1(years * safe) / np.expm1(safe))
-
-
 def _present_worth_kernel(x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """A, B, C for 1-D input arrays of equal length, already checked (see the public wrapper)."""
     years = x["years"]
@@ -805,10 +797,10 @@ def _present_worth_kernel(x: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.n
     log_escalation = np.log1p(x["energy_escalation"])
     log_growth = 2.0 * np.log1p(x["load_growth"])
     first = np.exp(-log_discount)
-    s_d = first * _geometric_sums(years, -log_discount)
-    s_e = first * _geometric_sums(years, log_escalation - log_discount)
-    s_g = first * _geometric_sums(years, log_growth - log_discount)
-    s_eg = first * _geometric_sums(years, log_escalation + log_growth - log_discount)
+    s_d = first * geometric_sum_from_log(years, -log_discount)
+    s_e = first * geometric_sum_from_log(years, log_escalation - log_discount)
+    s_g = first * geometric_sum_from_log(years, log_growth - log_discount)
+    s_eg = first * geometric_sum_from_log(years, log_escalation + log_growth - log_discount)
 
     sc, rf = x["capacity_cost_per_kw_year"], x["responsibility_factor"]
     price, carbon = x["energy_price_per_kwh"], x["carbon_cost_per_kwh"]
