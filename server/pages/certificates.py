@@ -15,7 +15,7 @@ from server.deps import SessionDep
 from server.errors import Conflict, ImportRefused, InvalidField
 from server.pages import certificate_views, views
 from server.pages.certificate_views import box_name, reading_errors
-from server.pages.forms import FormDep, field_errors
+from server.pages.forms import FormDep, conflict_errors, field_errors
 from server.pages.intake import NO_FILE, UploadDep
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
 from server.services import tenders
@@ -83,7 +83,7 @@ def save_contract_terms(request: Request, tender_id: schemas.PathId, session: Se
         errors = {exc.field: exc.detail}
     except Conflict as exc:
         views.discard(session)
-        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
+        errors, status, conflict = conflict_errors(exc), 409, exc.current
     else:
         if not is_htmx(request):
             return see_other(request, f"/tenders/{tender_id}?saved=1#contract-terms")

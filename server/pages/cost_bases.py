@@ -13,7 +13,7 @@ from server.deps import SessionDep
 from server.errors import Conflict, InvalidField
 from server.pages import planning_views, views
 from server.pages.basis_form import chosen_method
-from server.pages.forms import FormDep, FormValues, field_errors, full_inputs
+from server.pages.forms import FormDep, FormValues, conflict_errors, field_errors, full_inputs
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
 from server.services import cost_bases as service
 
@@ -100,7 +100,7 @@ def revise_cost_basis(request: Request, cost_basis_id: schemas.PathId, session: 
         errors, status = {exc.field: exc.detail}, 422
     except Conflict as exc:
         views.discard(session)
-        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
+        errors, status, conflict = conflict_errors(exc), 409, exc.current
     else:
         revision = basis.latest.revision
         if not is_htmx(request):

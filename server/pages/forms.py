@@ -3,13 +3,17 @@
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
+from dataclasses import dataclass
 from types import UnionType
-from typing import Annotated, Any, Literal, Union, get_args, get_origin
+from typing import Annotated, Any, Literal, TypeVar, Union, get_args, get_origin
 
 from fastapi import Depends, Request
 from pydantic import BaseModel, ValidationError
 from pydantic_core import PydanticUndefined
+from sqlalchemy.orm import Session
 
+from server.errors import Conflict, InvalidField
 from server.pages.templating import fmt_plain
 
 FormValues = dict[str, str]
@@ -208,3 +212,41 @@ def basis_choice(value: str) -> dict[str, Any]:
     if revision:
         data["cost_basis_revision"] = revision
     return data
+
+
+T = TypeVar("T")
+
+
+@dataclass(frozen=True)
+class Refused:
+    """Why a form's service call changed nothing: messages by field, the HTTP status, and for a stale
+    save the stored values (``Conflict.current``)."""
+
+    errors: FieldErrors
+    status: int
+    conflict: Any = None
+
+
+def conflict_errors(exc: Conflict) -> dict[str, str]:
+    """A stale save shows the stored values; any other refusal (an awarded lot) says why."""
+    return {} if exc.current is not None else {"form": exc.message}
+
+
+def attempt(session: Session, action: Callable[[], T]) -> T | Refused:
+    """Run a form's one service call; a refusal rolls the session back and comes back as ``Refused``.
+
+    Every form post goes through here, so no route rolls back by hand and each refusal reads the
+    same way: the schema's messages beside their fields (422), a service's ``InvalidField`` beside
+    its field (422), a stale version or a frozen lot (409, with the stored values when there are
+    some). The session is rolled back in every case, so the page that follows reads the stored data.
+    """
+    try:
+        return action()
+    except ValidationError as exc:
+        refused = Refused(field_errors(exc), 422)
+    except InvalidField as exc:
+        refused = Refused({exc.field: exc.detail}, 422)
+    except Conflict as exc:
+        refused = Refused(conflict_errors(exc), 409, exc.current)
+    session.rollback()
+    return refused

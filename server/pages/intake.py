@@ -17,7 +17,7 @@ from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
 from server.errors import Conflict, ImportRefused, InvalidField
 from server.pages import intake_views, views
-from server.pages.forms import FormDep, FormListsDep, FormValues, field_errors, plain_message
+from server.pages.forms import FormDep, FormListsDep, FormValues, conflict_errors, field_errors, plain_message
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
 from server.services import offer_imports, pages_intake, tenders
 
@@ -217,7 +217,7 @@ def save_currencies(request: Request, tender_id: schemas.PathId, session: Sessio
         errors = {exc.field: exc.detail}
     except Conflict as exc:
         views.discard(session)
-        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
+        errors, status, conflict = conflict_errors(exc), 409, exc.current
     else:
         if not is_htmx(request):
             return see_other(request, f"/tenders/{tender_id}?saved=1")

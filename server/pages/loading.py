@@ -10,7 +10,7 @@ from server.auth import BUYER
 from server.deps import SessionDep
 from server.errors import Conflict, InvalidField
 from server.pages import views
-from server.pages.forms import FormDep, field_errors, patch_data
+from server.pages.forms import FormDep, conflict_errors, field_errors, patch_data
 from server.pages.templating import RANKING_CHANGED, is_htmx, page_or_partial, render, see_other
 from server.services import tenders as service
 
@@ -33,7 +33,7 @@ def save_loading(request: Request, lot_id: schemas.PathId, session: SessionDep, 
         errors, status = {exc.field: exc.detail}, 422
     except Conflict as exc:
         views.discard(session)
-        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
+        errors, status, conflict = conflict_errors(exc), 409, exc.current
     else:
         if not is_htmx(request):
             return see_other(request, f"/lots/{lot_id}")

@@ -4,14 +4,12 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Request
 from fastapi.responses import RedirectResponse
-from pydantic import ValidationError
 
 from server import schemas
 from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
-from server.errors import Conflict, InvalidField
 from server.pages import views
-from server.pages.forms import FormDep, create_data, field_errors, patch_data
+from server.pages.forms import FormDep, Refused, attempt, create_data, patch_data
 from server.pages.page_cache import cached_page
 from server.pages.templating import RANKING_CHANGED, is_htmx, page_or_partial, render, see_other
 from server.services import offers as service
@@ -37,18 +35,13 @@ def lot_ranking(request: Request, lot_id: schemas.PathId, session: SessionDep, i
 
 @router.post("/lots/{lot_id:int}/offers", dependencies=[BUYER])
 def add_offer(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
-    try:
-        service.add_offer(session, lot_id, schemas.OfferCreate.model_validate(create_data(form, schemas.OfferCreate)))
-    except ValidationError as exc:
-        errors = field_errors(exc)
-    except InvalidField as exc:
-        views.discard(session)
-        errors = {exc.field: exc.detail}
-    else:
+    result = attempt(session, lambda: service.add_offer(
+        session, lot_id, schemas.OfferCreate.model_validate(create_data(form, schemas.OfferCreate))))
+    if not isinstance(result, Refused):
         if not is_htmx(request):
             return see_other(request, f"/lots/{lot_id}")
         return render(request, "lots/_offers.html", views.lot_detail(session, lot_id), headers=RANKING_CHANGED)
-    context = views.lot_detail(session, lot_id) | {"new_form": form, "new_errors": errors}
+    context = views.lot_detail(session, lot_id) | {"new_form": form, "new_errors": result.errors}
     return page_or_partial(request, "lots/detail.html", "lots/_offers.html", context, status_code=422)
 
 
@@ -70,24 +63,17 @@ def edit_offer_form(request: Request, offer_id: schemas.PathId, session: Session
 @router.post("/offers/{offer_id:int}", dependencies=[BUYER])
 def save_offer(request: Request, offer_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Save an edit made against the version in the form; a stale version changes nothing."""
-    conflict = None
-    try:
+    def save():
         data = patch_data(form, schemas.OfferCreate, views.OFFER_FIELDS) | {"version": form.get("version", "")}
-        offer = service.patch_offer(session, offer_id, schemas.OfferPatch.model_validate(data))
-    except ValidationError as exc:
-        errors, status = field_errors(exc), 422
-    except InvalidField as exc:
-        views.discard(session)
-        errors, status = {exc.field: exc.detail}, 422
-    except Conflict as exc:
-        views.discard(session)
-        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
-    else:
+        return service.patch_offer(session, offer_id, schemas.OfferPatch.model_validate(data))
+
+    result = attempt(session, save)
+    if not isinstance(result, Refused):
         if not is_htmx(request):
-            return see_other(request, f"/lots/{offer.lot_id}")
+            return see_other(request, f"/lots/{result.lot_id}")
         return render(request, "lots/_offer_row.html", views.offer_row(session, offer_id), headers=RANKING_CHANGED)
-    context = views.offer_edit(session, offer_id, form, errors, conflict)
-    return page_or_partial(request, "lots/detail.html", "lots/_offer_edit_row.html", context, status)
+    context = views.offer_edit(session, offer_id, form, result.errors, result.conflict)
+    return page_or_partial(request, "lots/detail.html", "lots/_offer_edit_row.html", context, result.status)
 
 
 @router.post("/offers/{offer_id:int}/delete", dependencies=[BUYER])

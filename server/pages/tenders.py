@@ -6,14 +6,20 @@ from typing import Any
 
 from fastapi import APIRouter, Request
 from fastapi.responses import RedirectResponse
-from pydantic import ValidationError
 
 from server import schemas
 from server.auth import ANY_ROLE, BUYER
 from server.deps import SessionDep
-from server.errors import Conflict, InvalidField
 from server.pages import views
-from server.pages.forms import FormDep, FormListsDep, FormValues, basis_choice, create_data, field_errors
+from server.pages.forms import (
+    FormDep,
+    FormListsDep,
+    FormValues,
+    Refused,
+    attempt,
+    basis_choice,
+    create_data,
+)
 from server.pages.templating import is_htmx, page_or_partial, render, see_other
 from server.services import pages_intake
 from server.services import tenders as service
@@ -50,16 +56,11 @@ def tender_list(request: Request, session: SessionDep):
 @router.post("/tenders", dependencies=[BUYER])
 def create_tender(request: Request, session: SessionDep, form: FormDep, lists: FormListsDep):
     tables = lists.get("limit_tables", [])
-    try:
-        tender = service.create_tender(session, schemas.TenderCreate.model_validate(_new_tender(form, tables)))
-    except ValidationError as exc:
-        errors = field_errors(exc)
-    except InvalidField as exc:
-        views.discard(session)
-        errors = {exc.field: exc.detail}
-    else:
-        return see_other(request, f"/tenders/{tender.id}")
-    context = views.tender_list(session) | {"form": form | {"limit_tables": tables}, "errors": errors}
+    result = attempt(session, lambda: service.create_tender(
+        session, schemas.TenderCreate.model_validate(_new_tender(form, tables))))
+    if not isinstance(result, Refused):
+        return see_other(request, f"/tenders/{result.id}")
+    context = views.tender_list(session) | {"form": form | {"limit_tables": tables}, "errors": result.errors}
     return page_or_partial(request, "tenders/list.html", "tenders/_new_form.html", context, status_code=422)
 
 
@@ -76,45 +77,33 @@ def tender_detail(request: Request, tender_id: schemas.PathId, session: SessionD
 @router.post("/tenders/{tender_id:int}", dependencies=[BUYER])
 def edit_tender(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep):
     """Title, status and cost basis (with its revision), saved against the version in the form."""
-    conflict = None
-    try:
-        service.patch_tender(session, tender_id, schemas.TenderPatch.model_validate(_tender_patch(form)))
-    except ValidationError as exc:
-        errors, status = field_errors(exc), 422
-    except InvalidField as exc:
-        views.discard(session)
-        errors, status = {exc.field: exc.detail}, 422
-    except Conflict as exc:
-        views.discard(session)
-        errors, status, conflict = views.conflict_errors(exc), 409, exc.current
-    else:
+    result = attempt(session, lambda: service.patch_tender(
+        session, tender_id, schemas.TenderPatch.model_validate(_tender_patch(form))))
+    if not isinstance(result, Refused):
         if not is_htmx(request):
             return see_other(request, f"/tenders/{tender_id}?saved=1")
         context = views.tender_detail(session, tender_id)
         context |= {"form": views.tender_form(context["tender"]), "saved": True}
         return render(request, "tenders/_header.html", context)
     context = views.tender_detail(session, tender_id)
-    if conflict is not None:
+    if result.conflict is not None:
         # Keep what was typed, but against the stored version: saving again is a deliberate overwrite.
         form = form | {"version": str(context["tender"].version)}
-    context |= {"form": form, "errors": errors, "conflict": conflict, "lot_form": views.LOT_DEFAULTS}
-    return page_or_partial(request, "tenders/detail.html", "tenders/_header.html", context, status)
+    context |= {"form": form, "errors": result.errors, "conflict": result.conflict, "lot_form": views.LOT_DEFAULTS}
+    return page_or_partial(request, "tenders/detail.html", "tenders/_header.html", context, result.status)
 
 
 @router.post("/tenders/{tender_id:int}/lots", dependencies=[BUYER])
 def add_lot(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep, lists: FormListsDep):
     tables = lists.get("limit_tables", [])
-    try:
-        data = create_data(form, schemas.LotCreate) | {"limit_tables": tables}
-        service.add_lot(session, tender_id, schemas.LotCreate.model_validate(data))
-    except ValidationError as exc:
-        errors = field_errors(exc)
-    else:
+    data = create_data(form, schemas.LotCreate) | {"limit_tables": tables}
+    result = attempt(session, lambda: service.add_lot(session, tender_id, schemas.LotCreate.model_validate(data)))
+    if not isinstance(result, Refused):
         if not is_htmx(request):
             return see_other(request, f"/tenders/{tender_id}")
         context = views.tender_detail(session, tender_id) | {"lot_form": views.LOT_DEFAULTS}
         return render(request, "tenders/_lots.html", context)
     context = views.tender_detail(session, tender_id)
     context |= {"form": views.tender_form(context["tender"]), "lot_form": form | {"limit_tables": tables},
-                "lot_errors": errors}
+                "lot_errors": result.errors}
     return page_or_partial(request, "tenders/detail.html", "tenders/_lots.html", context, status_code=422)

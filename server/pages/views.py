@@ -12,7 +12,7 @@ from pydantic import ValidationError
 from sqlalchemy.orm import Session
 
 from server import schemas
-from server.errors import Conflict, InvalidField
+from server.errors import InvalidField
 from server.pages import certificate_views, intake_views, planning_views
 from server.pages.basis_form import chosen_method, input_label, method_boxes, price_path_coverage
 from server.pages.charts import toc_breakdown_chart
@@ -193,11 +193,6 @@ def cost_basis_list(session: Session) -> dict[str, Any]:
 def cost_basis_detail(session: Session, cost_basis_id: int) -> dict[str, Any]:
     basis = cost_bases.cost_basis_out(cost_bases.get_cost_basis(session, cost_basis_id), detail=True)
     return {"basis": basis}
-
-
-def conflict_errors(exc: Conflict) -> dict[str, str]:
-    """A stale save shows the stored values; any other refusal (an awarded lot) says why."""
-    return {} if exc.current is not None else {"form": exc.message}
 
 
 def discard(session: Session) -> None:
