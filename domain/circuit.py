@@ -20,7 +20,7 @@ References
 The open- and short-circuit test method and the T-equivalent circuit are the standard
 textbook treatment of the two-winding transformer (e.g. A. E. Fitzgerald, C. Kingsley,
 S. D. Umans, *Electric Machinery*, chapter 2). Temperature correction of the load loss:
-IEC 60076-1 and IEEE C57.12.90 (formula from memory, REFERENCE.md section 7).
+IEC 60076-1 and IEEE C57.12.90 (formula from memory, docs/references.md R7).
 """
 
 from __future__ import annotations
@@ -63,7 +63,7 @@ UNITY_POWER_FACTOR_RTOL = 1e-9
 
 # Temperature constant C [deg C] of the resistance-temperature relation R ~ (C + t),
 # by standard and conductor. IEC 60076-1: copper 235, aluminium 225; IEEE C57.12.90:
-# copper 234.5, aluminium 225 (all from memory; REFERENCE.md section 7 lists IEC copper
+# copper 234.5, aluminium 225 (all from memory; docs/references.md R7 lists IEC copper
 # and aluminium and IEEE copper).
 TEMPERATURE_CONSTANT_C: dict[tuple[str, str], float] = {
     ("iec", "copper"): 235.0,
@@ -289,7 +289,7 @@ def shunt_branch_from_open_circuit(voltage_v: Any, current_a: Any, power_w: Any,
 
     References
     ----------
-    Standard textbook open-circuit test (REFERENCE.md section 7).
+    Standard textbook open-circuit test (docs/references.md R7).
     """
     v_ph, i, p_ph, _ = _measured_per_phase(voltage_v, current_a, power_w, phases)
     g = p_ph / (v_ph * v_ph)
@@ -331,7 +331,7 @@ def series_branch_from_short_circuit(voltage_v: Any, current_a: Any, power_w: An
 
     References
     ----------
-    Standard textbook short-circuit test (REFERENCE.md section 7).
+    Standard textbook short-circuit test (docs/references.md R7).
     """
     v_ph, i, p_ph, _ = _measured_per_phase(voltage_v, current_a, power_w, phases)
     req = p_ph / (i * i)
@@ -365,7 +365,7 @@ def impedance_percent(zeq_ohm: Any, voltage_v: Any, rating_kva: Any) -> float | 
 
     References
     ----------
-    Per-unit system (REFERENCE.md section 7).
+    Per-unit system (docs/references.md R7).
     """
     z = _non_negative("zeq_ohm", zeq_ohm)
     return as_output(100.0 * z / base_impedance_ohm(voltage_v, rating_kva))
@@ -394,7 +394,7 @@ def refer_impedance(ohm: Any, from_voltage_v: Any, to_voltage_v: Any) -> float |
 
     References
     ----------
-    Standard textbook referral across the ideal transformer (REFERENCE.md section 7).
+    Standard textbook referral across the ideal transformer (docs/references.md R7).
     """
     z = _impedance("ohm", ohm)
     v_from = _positive("from_voltage_v", from_voltage_v)
@@ -427,8 +427,8 @@ def split_series(req_ohm: Any, xeq_ohm: Any, ratio: Any = 0.5) -> SeriesSplit:
 
     References
     ----------
-    Standard textbook assumption R1 = R2' = Req / 2, X1 = X2' = Xeq / 2 (REFERENCE.md
-    section 7).
+    Standard textbook assumption R1 = R2' = Req / 2, X1 = X2' = Xeq / 2
+    (docs/references.md R7).
     """
     req = _non_negative("req_ohm", req_ohm)
     xeq = _non_negative("xeq_ohm", xeq_ohm)
@@ -482,7 +482,7 @@ def correct_load_loss_to_reference(
     References
     ----------
     IEC 60076-1 and IEEE C57.12.90, load-loss temperature correction (formula and
-    constants from memory, REFERENCE.md section 7: check against the standards).
+    constants from memory, docs/references.md R7: check against the standards).
     """
     key_conductor = "aluminium" if conductor == "aluminum" else conductor
     if key_conductor not in ("copper", "aluminium"):
@@ -527,7 +527,7 @@ def scale_to_current(power_w: Any, test_current_a: Any, target_current_a: Any) -
 
     References
     ----------
-    Common practice; REFERENCE.md section 7.
+    Common practice; docs/references.md R7.
     """
     p = _non_negative("power_w", power_w)
     i_test = _positive("test_current_a", test_current_a)
@@ -614,11 +614,12 @@ def solve_t_circuit(
 
     References
     ----------
-    Standard textbook T-equivalent circuit of the two-winding transformer (REFERENCE.md
-    section 7). Regulation as in textbooks, over the loaded output voltage; IEC 60076-1
-    states the voltage drop at a specified load with the other winding at rated voltage
-    and refers it to the rated voltage instead (from memory); the two differ by about
-    the square of the drop, under 0.1 percentage point for distribution units.
+    Standard textbook T-equivalent circuit of the two-winding transformer
+    (docs/references.md R7). Regulation as in textbooks, over the loaded output
+    voltage; IEC 60076-1 states the voltage drop at a specified load with the other
+    winding at rated voltage and refers it to the rated voltage instead (from memory);
+    the two differ by about the square of the drop, under 0.1 percentage point for
+    distribution units.
     """
     count = _phases(phases)
     r1 = _impedance("r1_ohm", r1_ohm)
@@ -791,7 +792,7 @@ def circuit_from_tests(
 
     References
     ----------
-    Standard textbook method (REFERENCE.md section 7).
+    Standard textbook method (docs/references.md R7).
     """
     s_kva = finite_scalar("rating_kva", rating_kva, low=0.0, low_open=True)
     count = _phases(phases)

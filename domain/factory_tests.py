@@ -160,7 +160,7 @@ def iec_60076_1_verdict(
     References
     ----------
     IEC 60076-1, Table 1 (1993 + A1 1999 read; 2011 edition from memory), as in
-    REFERENCE.md section 7. Specifications may set tighter rules; these are the
+    docs/references.md R7. Specifications may set tighter rules; these are the
     standard's.
     """
     g0, gk, m0, mk = _losses(guaranteed_no_load_w, guaranteed_load_w, measured_no_load_w, measured_load_w)
@@ -235,7 +235,7 @@ def ieee_c57_12_00_verdict(
 
     References
     ----------
-    IEEE C57.12.00, loss tolerance table (from memory, REFERENCE.md section 7).
+    IEEE C57.12.00, loss tolerance table (from memory, docs/references.md R7).
     """
     g0, gk, m0, mk = _losses(guaranteed_no_load_w, guaranteed_load_w, measured_no_load_w, measured_load_w)
     no_load_limit = g0 * (1.0 + IEEE_NO_LOAD_LOSS_TOLERANCE_PCT / 100.0)
@@ -312,7 +312,7 @@ def loss_penalty(
 
     References
     ----------
-    Common specification practice (REFERENCE.md section 7); the rates are those of the
+    Common specification practice (docs/references.md R7); the rates are those of the
     tender's total-owning-cost evaluation (section 2).
     """
     g0 = float_array("guaranteed_no_load_w", guaranteed_no_load_w)

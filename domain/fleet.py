@@ -66,7 +66,7 @@ _INSULATION_NAMES = {LIQUID: "liquid-immersed", DRY: "dry-type"}
 HOURS_PER_YEAR = 8760.0
 
 # Usual three-phase distribution ratings [kVA]: the ratings of the EU loss tables
-# (REFERENCE.md section 6) up to 2500 kVA. Common practice, no single source.
+# (docs/references.md R6) up to 2500 kVA. Common practice, no single source.
 STANDARD_RATINGS_KVA: tuple[float, ...] = (
     25, 50, 100, 160, 250, 315, 400, 500, 630, 800, 1000, 1250, 1600, 2000, 2500,
 )
@@ -1018,7 +1018,7 @@ def shortlist(
 
     References
     ----------
-    Present-worth conventions of this product (REFERENCE.md section 3, as in
+    Present-worth conventions of this product (docs/references.md R3, as in
     ``domain.rates``); NPV and simple payback are standard engineering-economy
     definitions; right-sizing and the remaining-life horizon are common practice.
     """

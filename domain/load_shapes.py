@@ -159,7 +159,7 @@ def shape_figures(values: Any) -> ShapeFigures:
 
     References
     ----------
-    Textbook definitions (distribution engineering texts); REFERENCE.md section 4.
+    Textbook definitions (distribution engineering texts); docs/references.md R4.
     """
     series = float_array("values", values)
     if series.ndim != 1 or series.size == 0:

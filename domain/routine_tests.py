@@ -84,7 +84,7 @@ def routine_test_figures(
     References
     ----------
     IEC 60076-1 (load loss and impedance referred to the reference temperature; formula
-    from memory, REFERENCE.md section 7); IEEE C57.12.90 likewise.
+    from memory, docs/references.md R7); IEEE C57.12.90 likewise.
     """
     notes: list[str] = []
     s_va = rating_kva * 1000.0

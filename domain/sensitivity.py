@@ -1,7 +1,7 @@
 """How firm is a tender's ranking? Break-even rates, rate maps, tornado and Monte Carlo.
 
 TOC per unit = price + A * P0 / 1000 + B * Pk / 1000 + C * Paux / 1000, with
-A, B, C in currency/kW and the losses in W (REFERENCE.md s.2). Each tool here
+A, B, C in currency/kW and the losses in W (docs/references.md R2). Each tool here
 asks how far the capitalisation rates, or the inputs they are computed from,
 may move before another offer wins:
 

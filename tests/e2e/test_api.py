@@ -33,7 +33,7 @@ def test_cost_basis_direct_round_trip(client):
 
 def test_cost_basis_present_worth_level_series(client):
     # With no escalation and no growth, A = (capacity cost + price * 8760) * PWF(i, n);
-    # PWF(8 %, 30) = 11.2578 (standard finance identity, REFERENCE.md section 3).
+    # PWF(8 %, 30) = 11.2578 (standard finance identity, docs/references.md R3).
     body = f.present_worth_basis(
         energy_escalation_pct=0.0, load_growth_pct=0.0, discount_rate_pct=8.0, years=30,
         capacity_cost_per_kw_year=50.0, energy_price_per_kwh=0.1,
@@ -53,7 +53,7 @@ def test_cost_basis_fixed_charge_rate(client):
     }
     r = client.post("/api/v1/cost-bases", json=body)
     assert r.status_code == 201, r.text
-    # Hand calculation of REFERENCE.md section 3's formulas (from memory there).
+    # Hand calculation of docs/references.md R3's formulas (from memory there).
     assert r.json()["no_load_rate_per_kw"] == pytest.approx((100 + 0.05 * 8760) / 0.10)
     assert r.json()["load_rate_per_kw"] == pytest.approx((100 * 0.8 + 0.05 * 8760 * 0.25) * 0.81 / 0.10)
 
@@ -275,7 +275,7 @@ def test_unknown_ids_are_404(client):
 # --- ranking ------------------------------------------------------------------------------------
 
 def test_ranking_matches_hand_calculation(client):
-    # Hand calculation, common practice (REFERENCE.md section 2): TOC = price + A*P0 + B*Pk + C*Paux,
+    # Hand calculation, common practice (docs/references.md R2): TOC = price + A*P0 + B*Pk + C*Paux,
     # with A = 6000, B = 1500, C = 800 per kW.
     _, _, lot_id = f.setup_lot(client)
     offers = [

@@ -10,7 +10,7 @@ import pytest
 from tests import factories as f
 from tests.conftest import auth
 
-# REFERENCE.md section 7 worked check (textbook example, short-circuit data): 10 kVA 2000/400 V,
+# docs/references.md R7 worked check (textbook example, short-circuit data): 10 kVA 2000/400 V,
 # tested on the HV side at 100 V, 5 A, 100 W: Req = 4 ohm, |Zeq| = 20 ohm, Xeq = 8 sqrt(6) ohm;
 # referred to the LV side Zeq = 0.16 + j0.784 ohm. The open-circuit readings below are invented.
 WORKED = {

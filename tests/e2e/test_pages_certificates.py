@@ -327,7 +327,7 @@ def test_the_analysis_tool_shows_the_circuit_findings_and_curves(page_client):
 
 def test_the_analysis_tool_takes_readings_and_says_infinite(page_client):
     log_in(page_client)
-    # REFERENCE.md section 7 worked check: 10 kVA 2000/400 V; with the open-circuit current all in phase
+    # docs/references.md R7 worked check: 10 kVA 2000/400 V; with the open-circuit current all in phase
     # (60 W at 400 V is 0.15 A) the magnetising reactance is infinite.
     query = {"rating_kva": "10", "phases": "1", "hv_v": "2000", "lv_v": "400", "reference_temp_c": "75",
              "standard": "iec", "circuit_side": "hv", "oc_side": "lv", "oc_voltage_v": "400", "oc_current_a": "0.15",

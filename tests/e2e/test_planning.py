@@ -49,7 +49,7 @@ def test_uploaded_year_loss_factor_equals_independent_value(client):
     r = _import(client, _csv(values))
     assert r.status_code == 201, r.text
     body = r.json()
-    # Independent computation of the definitions in REFERENCE.md section 4.
+    # Independent computation of the definitions in docs/references.md R4.
     assert body["loss_factor"] == pytest.approx(np.mean(values**2) / values.max() ** 2, rel=1e-12)
     assert body["load_factor"] == pytest.approx(values.mean() / values.max(), rel=1e-12)
     assert body["peak"] == pytest.approx(values.max())
@@ -100,7 +100,7 @@ def test_daily_curves_expand_to_the_year_built_by_hand(client):
 
 
 def _pw_by_hand(price, escalation, capacity, discount, years, peak, growth, lsf, rf, cooling=0.0):
-    """An independent year-by-year present-worth loop (REFERENCE.md section 3 conventions)."""
+    """An independent year-by-year present-worth loop (docs/references.md R3 conventions)."""
     a = b = c = 0.0
     for t in range(1, years + 1):
         d = (1 + discount) ** t

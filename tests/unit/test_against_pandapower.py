@@ -1,4 +1,4 @@
-"""The exact T-circuit solution against pandapower's transformer model (REFERENCE.md s.7).
+"""The exact T-circuit solution against pandapower's transformer model (docs/references.md R7).
 
 pandapower is the independent reference. Its two-winding transformer with
 ``trafo_model="t"`` (the default, set explicitly here) is a T circuit on the LV side:
@@ -27,7 +27,7 @@ if os.environ.get("LOSSLEDGER_REQUIRE_ALL") == "1":
 else:
     pp = pytest.importorskip("pandapower")
 
-STD_TYPE = "0.4 MVA 20/0.4 kV"  # vk 6 %, vkr 1.425 %, pfe 1.35 kW, i0 0.3375 % (REFERENCE.md s.7)
+STD_TYPE = "0.4 MVA 20/0.4 kV"  # vk 6 %, vkr 1.425 %, pfe 1.35 kW, i0 0.3375 % (docs/references.md R7)
 LOAD_MW, LOAD_MVAR = 0.3, 0.1
 
 
@@ -69,7 +69,7 @@ def circuit(std):
 
 
 def test_std_type_magnetising_current_is_all_loss_current(circuit):
-    # i0 0.3375 % of 400 kVA is 1.35 kVA = pfe: no magnetising susceptance (REFERENCE.md s.7 note).
+    # i0 0.3375 % of 400 kVA is 1.35 kVA = pfe: no magnetising susceptance (docs/references.md R7 note).
     assert circuit.x0_ohm == math.inf
     assert_allclose(circuit.impedance_pct, 6.0, rtol=1e-12)
 

@@ -1,4 +1,4 @@
-"""Equivalent circuit from the open- and short-circuit tests, and its exact solution (REFERENCE.md s.7)."""
+"""Equivalent circuit from the open- and short-circuit tests, and its exact solution (docs/references.md R7)."""
 
 import math
 
@@ -30,7 +30,7 @@ from domain.errors import InvalidInput
 
 
 def test_short_circuit_worked_check_from_reference():
-    # REFERENCE.md s.7 worked check (textbook example): 10 kVA 2000/400 V, short-circuit
+    # docs/references.md R7 worked check (textbook example): 10 kVA 2000/400 V, short-circuit
     # test on HV at 100 V, 5 A, 100 W: Req 4 ohm, |Zeq| 20 ohm, Xeq 8*sqrt(6) = 19.5959 ohm.
     series = series_branch_from_short_circuit(100.0, 5.0, 100.0, phases=1)
     assert isinstance(series.req_ohm, float)
@@ -38,19 +38,19 @@ def test_short_circuit_worked_check_from_reference():
     assert_allclose(series.zeq_ohm, 20.0, rtol=1e-15)
     assert_allclose(series.xeq_ohm, 8.0 * math.sqrt(6.0), rtol=1e-14)
     assert_allclose(series.xeq_ohm, 19.5959, atol=5e-5)
-    # Referred to LV: 0.16 + j0.7838 ohm (REFERENCE.md s.7).
+    # Referred to LV: 0.16 + j0.7838 ohm (docs/references.md R7).
     assert_allclose(refer_impedance(series.req_ohm, 2000.0, 400.0), 0.16, rtol=1e-14)
     assert_allclose(refer_impedance(series.xeq_ohm, 2000.0, 400.0), 0.7838, atol=5e-5)
 
 
 def test_short_circuit_worked_check_through_circuit_from_tests():
-    # Same REFERENCE.md s.7 data through the convenience function, circuit on the LV side.
+    # Same docs/references.md R7 data through the convenience function, circuit on the LV side.
     # The open-circuit reading (LV, 400 V, 1 A, 100 W) is made up, only to complete the call.
     circuit = circuit_from_tests(10.0, 1, 2000.0, 400.0, open_circuit=("lv", 400.0, 1.0, 100.0),
                                  short_circuit=("hv", 100.0, 5.0, 100.0), circuit_side="lv")
     assert circuit.side == "lv" and circuit.rated_voltage_v == 400.0
     assert_allclose([circuit.req_ohm, circuit.xeq_ohm], [0.16, 8 * math.sqrt(6) / 25], rtol=1e-14)
-    # Equal split (REFERENCE.md s.7): half of each on either winding.
+    # Equal split (docs/references.md R7): half of each on either winding.
     assert_allclose([circuit.r1_ohm, circuit.r2_ohm], [0.08, 0.08], rtol=1e-14)
     assert_allclose([circuit.x1_ohm, circuit.x2_ohm], [circuit.xeq_ohm / 2] * 2, rtol=1e-14)
     # |Zeq| 20 ohm on a 400 ohm HV base (2000**2 / 10 kVA): 5 % (hand computed).
@@ -268,7 +268,7 @@ def distribution_unit():
 
 
 def test_single_phase_solution_hand_checked():
-    # 10 kVA 2000/400 V of REFERENCE.md s.7 on the LV side, no shunt branch, rated load at unity pf.
+    # 10 kVA 2000/400 V of docs/references.md R7 on the LV side, no shunt branch, rated load at unity pf.
     # I2 = 25 A, Vm = V1 = 400 + 25 * (0.16 + j0.78384) = 404 + j19.596 V (hand computed):
     # |V1| = 404.475 V, regulation 1.11875 %, copper loss 25**2 * 0.16 = 100 W.
     r1, x1, r2, x2 = split_series(0.16, 8 * math.sqrt(6) / 25)
@@ -345,7 +345,7 @@ def test_open_shunt_gives_input_voltage_as_no_load_voltage():
 )
 def test_energy_balance(rating_kva, voltage_v, phases, z_pu, rx_angle_deg, hv_share, g_pu, b_pu, load_pu,
                         power_factor, lagging):
-    # Property (REFERENCE.md s.7): input power = output + both copper losses + core loss,
+    # Property (docs/references.md R7): input power = output + both copper losses + core loss,
     # to 1e-9 relative, for random circuits, loads, pf, lagging and leading.
     z_base = voltage_v**2 / (1000 * rating_kva)
     req = z_pu * z_base * math.cos(math.radians(rx_angle_deg))
@@ -403,7 +403,7 @@ def test_regulation_close_to_the_approximate_formula():
 
 
 def test_exact_efficiency_close_to_the_approximate_formula():
-    # REFERENCE.md s.5: eta = kS pf / (kS pf + P0 + k**2 Pk), with P0 and Pk of the tests.
+    # docs/references.md R5: eta = kS pf / (kS pf + P0 + k**2 Pk), with P0 and Pk of the tests.
     # The exact circuit differs because (a) the core loss follows |Vm|**2, and |Vm| sits
     # above the rated output voltage by the drop in Z2 (up to about 2 % for a lagging load
     # on a 4 % unit, so about 3 % more core loss), and (b) the supply winding carries the

@@ -1,4 +1,4 @@
-"""Efficiency, loading of maximum efficiency and Peak Efficiency Index (REFERENCE.md s.5)."""
+"""Efficiency, loading of maximum efficiency and Peak Efficiency Index (docs/references.md R5)."""
 
 import numpy as np
 import pytest
@@ -129,7 +129,7 @@ def test_pei_and_efficiency_at_k_star(p0, pk, rating):
 
 
 def test_pei_numerically_close_to_efficiency_at_k_star_for_a_distribution_unit():
-    # A 1000 kVA unit with EU Tier 2 maxima from REFERENCE.md s.6 (from memory):
+    # A 1000 kVA unit with EU Tier 2 maxima from docs/references.md R6 (from memory):
     # P0 693 W, Pk 7600 W. The two agree to about 2e-5 (0.002 percentage points).
     pei = peak_efficiency_index(1000.0, 693.0, 7600.0)
     eta_star = efficiency(loading_of_maximum_efficiency(693.0, 7600.0), 1000.0, 693.0, 7600.0)

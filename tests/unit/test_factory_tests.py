@@ -1,4 +1,4 @@
-"""Factory test verdicts, loss penalties and deviation summaries (REFERENCE.md s.7)."""
+"""Factory test verdicts, loss penalties and deviation summaries (docs/references.md R7)."""
 
 import numpy as np
 import pytest

@@ -1,6 +1,6 @@
 """Present-worth factors.
 
-Check values from REFERENCE.md section 3 (standard finance identity); numpy-financial
+Check values from docs/references.md R3 (standard finance identity); numpy-financial
 (`pv`, `npv`) and plain Python loops are the independent references.
 """
 
@@ -16,7 +16,7 @@ from domain import InvalidInput, present_worth_factor, present_worth_of_growing_
 
 @pytest.mark.parametrize(
     ("rate", "years", "expected"),
-    [(0.08, 30, 11.2578), (0.05, 20, 12.4622)],  # REFERENCE.md s.3, standard finance identity
+    [(0.08, 30, 11.2578), (0.05, 20, 12.4622)],  # docs/references.md R3, standard finance identity
 )
 def test_pwf_reference_check_values(rate, years, expected):
     result = present_worth_factor(rate, years)

@@ -2,7 +2,7 @@
 
 Each check names its source: "hand calculation" (worked in the comment beside it),
 numpy-financial (`npf.npv`, `npf.pv`), a plain Python loop over the years, domain.finance
-(a term-by-term sum), REFERENCE.md (with its own status), or "common practice, no source".
+(a term-by-term sum), docs/references.md (each entry with its own status), or "common practice, no source".
 """
 
 from __future__ import annotations
@@ -173,7 +173,7 @@ def test_fleet_arrays_check_their_columns_and_keep_private_read_only_copies():
 
 
 def test_default_table_newest_band_is_eu_tier_1_and_older_vintages_are_lossier():
-    # REFERENCE.md section 6 (values from memory): EU Tier 1 liquid 630 kVA P0 600 W, Pk 6500 W;
+    # docs/references.md R6 (values from memory): EU Tier 1 liquid 630 kVA P0 600 W, Pk 6500 W;
     # dry 1000 kVA P0 1550 W, Pk 9000 W. The default holds them for units from 2015.
     p0, pk = estimate_losses([630.0, 1000.0], [2020, 2020], [LIQUID, DRY])
     assert_array_equal(p0, [600.0, 1550.0])
@@ -291,7 +291,7 @@ def test_right_sized_rating_never_below_the_grown_peak(peak_kva, growth, years, 
 
 
 def test_limit_losses_by_rating_is_a_unit_just_meeting_the_table():
-    # REFERENCE.md section 6 (from memory): EU Tier 2 liquid 250 kVA P0 270 W, Pk 2350 W;
+    # docs/references.md R6 (from memory): EU Tier 2 liquid 250 kVA P0 270 W, Pk 2350 W;
     # 2500 kVA P0 1575 W, Pk 18500 W. The dry table starts at 50 kVA: no limit at 25 kVA.
     tier_2 = {t.insulation: t for t in BUILT_IN if t.key == "eu-tier-2" and t.kind == "max_losses"}
     p0, pk = limit_losses_by_rating(tier_2["liquid"], [250.0, 2500.0])
@@ -375,7 +375,7 @@ def test_an_oversized_old_unit_has_a_positive_npv_recomputed_by_hand():
 
 
 def _npv_by_plain_loop(u: dict, new: dict, terms: dict) -> tuple[float, list[float]]:
-    """Independent year-by-year cash flows of replacing one unit (REFERENCE.md s.3 conventions)."""
+    """Independent year-by-year cash flows of replacing one unit (docs/references.md R3 conventions)."""
     carbon = terms["carbon_price_per_t"] * terms["emission_factor_t_per_mwh"] / 1000.0
     age = terms["reference_year"] - u["year_installed"]
     n = max(terms["service_life_years"] - age, 0)

@@ -173,7 +173,7 @@ def test_an_offer_no_table_covers_is_not_assessed_never_compliant():
 
 
 def test_eu_tier_2_by_rating_and_insulation():
-    # REFERENCE.md section 6 (EU 548/2014, from memory): 400 kVA liquid Tier 2 P0 387 W, Pk 3250 W.
+    # docs/references.md R6 (EU 548/2014, from memory): 400 kVA liquid Tier 2 P0 387 W, Pk 3250 W.
     unit = UnitFacts(400, 3, "liquid", 20, 0.4)
     findings = check_offer(unit, OfferLossFigures(388, 3250), ("eu-tier-2",))
     assert [(f.limit, f.passed) for f in findings] == [(387, False), (3250, True)]

@@ -65,7 +65,7 @@ def test_bad_seasons_name_the_field(seasons, field):
 
 
 def test_figures_against_definitions():
-    # Definitions from REFERENCE.md section 4, computed independently here.
+    # Definitions from docs/references.md R4, computed independently here.
     values = np.array([2.0, 4.0, 1.0, 3.0])
     figures = shape_figures(values)
     assert figures.peak == 4.0
@@ -77,7 +77,7 @@ def test_figures_against_definitions():
 
 @given(arrays(np.float64, st.integers(24, 400), elements=st.floats(0, 1e4)).filter(lambda a: a.max() > 1e-300))
 def test_figures_bounds(values):
-    # LF^2 <= LsF <= LF (REFERENCE.md section 4).
+    # LF^2 <= LsF <= LF (docs/references.md R4).
     figures = shape_figures(values)
     assert figures.load_factor**2 <= figures.loss_factor * (1 + 1e-12)
     assert figures.loss_factor <= figures.load_factor * (1 + 1e-12)

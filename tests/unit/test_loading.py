@@ -1,4 +1,4 @@
-"""Load factor, loss factor and RMS loading (REFERENCE.md section 4)."""
+"""Load factor, loss factor and RMS loading (docs/references.md R4)."""
 
 import numpy as np
 import pytest
@@ -11,7 +11,7 @@ from domain import InvalidInput, load_factor, loss_factor, loss_factor_from_load
 
 
 def test_loss_factor_from_load_factor_published_worked_example():
-    # Published worked example quoted in REFERENCE.md s.4: LF 0.65, k 0.3 -> 0.49075.
+    # Published worked example quoted in docs/references.md R4: LF 0.65, k 0.3 -> 0.49075.
     result = loss_factor_from_load_factor(0.65, k=0.3)
     assert isinstance(result, float)
     assert_allclose(result, 0.49075, rtol=1e-12)
@@ -92,7 +92,7 @@ series_strategy = arrays(
 
 @given(series_strategy)
 def test_loss_factor_lies_between_lf_squared_and_lf(series):
-    # Property stated in REFERENCE.md s.4: LF**2 <= LsF <= LF.
+    # Property stated in docs/references.md R4: LF**2 <= LsF <= LF.
     lf = load_factor(series)
     lsf = loss_factor(series)
     slack = 1e-12
@@ -102,5 +102,5 @@ def test_loss_factor_lies_between_lf_squared_and_lf(series):
 
 @given(series_strategy)
 def test_rms_is_never_below_the_average(series):
-    # Why costing with the average load understates load losses (REFERENCE.md s.4).
+    # Why costing with the average load understates load losses (docs/references.md R4).
     assert rms_loading(series) >= series.mean() * (1 - 1e-12)

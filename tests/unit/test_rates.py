@@ -1,4 +1,4 @@
-"""Capitalisation rates: direct, present worth (REFERENCE.md s.3) and fixed charge rate."""
+"""Capitalisation rates: direct, present worth (docs/references.md R3) and fixed charge rate."""
 
 import math
 
@@ -34,7 +34,7 @@ BASE = dict(
 
 
 def _rates_by_plain_loop(p: dict) -> tuple[float, float, float]:
-    """Independent year-by-year evaluation of REFERENCE.md s.3 in plain Python."""
+    """Independent year-by-year evaluation of docs/references.md R3 in plain Python."""
     hours = p.get("hours_per_year", 8760.0)
     a = b = c = 0.0
     for t in range(1, p["years"] + 1):
@@ -82,7 +82,7 @@ def test_present_worth_no_load_rate_matches_numpy_financial_npv():
 
 
 def test_level_present_worth_equals_annual_cost_times_pwf():
-    # With e = g = 0: A = (SC + price * 8760) * PWF(i, n) (REFERENCE.md s.3).
+    # With e = g = 0: A = (SC + price * 8760) * PWF(i, n) (docs/references.md R3).
     params = {**BASE, "energy_escalation": 0.0, "load_growth": 0.0}
     rates = rates_present_worth(**params)
     pwf = present_worth_factor(params["discount_rate"], params["years"])
@@ -182,7 +182,7 @@ def test_fixed_charge_rate_default_has_no_cooling_energy():
 
 
 def test_direct_rates_are_stored_as_given():
-    # US rural-utility example rates quoted in REFERENCE.md s.3.
+    # US rural-utility example rates quoted in docs/references.md R3.
     rates = rates_direct(2450, 1304, 756)
     assert rates == CapitalisationRates(2450.0, 1304.0, 756.0)
     assert isinstance(rates.no_load_rate_per_kw, float)
@@ -295,7 +295,7 @@ def test_carbon_cost_acts_as_an_energy_price_adder():
 
 
 def test_explicit_price_path_against_a_plain_loop():
-    # Independent plain-Python present-worth loop (REFERENCE.md section 3 conventions).
+    # Independent plain-Python present-worth loop (docs/references.md R3 conventions).
     path = [0.08, 0.09, 0.11, 0.10, 0.12]
     args = {**BASE, "years": 5}
     rates = rates_present_worth(**args, energy_price_path_per_kwh=path)

@@ -1,4 +1,4 @@
-"""Sensitivity of the ranking: break-even rates, rate map, tornado, Monte Carlo (REFERENCE.md s.2-3)."""
+"""Sensitivity of the ranking: break-even rates, rate map, tornado, Monte Carlo (docs/references.md R2, R3)."""
 
 import math
 import threading

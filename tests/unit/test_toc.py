@@ -1,4 +1,4 @@
-"""Total owning cost and ranking of offers (REFERENCE.md s.2)."""
+"""Total owning cost and ranking of offers (docs/references.md R2)."""
 
 import math
 
