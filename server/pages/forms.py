@@ -232,13 +232,15 @@ def conflict_errors(exc: Conflict) -> dict[str, str]:
     return {} if exc.current is not None else {"form": exc.message}
 
 
-def attempt(session: Session, action: Callable[[], T]) -> T | Refused:
+def attempt(session: Session, action: Callable[[], T], *, conflict_on_form: bool = True) -> T | Refused:
     """Run a form's one service call; a refusal rolls the session back and comes back as ``Refused``.
 
     Every form post goes through here, so no route rolls back by hand and each refusal reads the
     same way: the schema's messages beside their fields (422), a service's ``InvalidField`` beside
     its field (422), a stale version or a frozen lot (409, with the stored values when there are
     some). The session is rolled back in every case, so the page that follows reads the stored data.
+    A form that only adds (``conflict_on_form=False``) lets a ``Conflict`` go on, after the rollback,
+    to the error notice: there is no stored version to show beside its boxes.
     """
     try:
         return action()
@@ -247,6 +249,9 @@ def attempt(session: Session, action: Callable[[], T]) -> T | Refused:
     except InvalidField as exc:
         refused = Refused({exc.field: exc.detail}, 422)
     except Conflict as exc:
+        if not conflict_on_form:
+            session.rollback()
+            raise
         refused = Refused(conflict_errors(exc), 409, exc.current)
     session.rollback()
     return refused

@@ -36,7 +36,8 @@ def lot_ranking(request: Request, lot_id: schemas.PathId, session: SessionDep, i
 @router.post("/lots/{lot_id:int}/offers", dependencies=[BUYER])
 def add_offer(request: Request, lot_id: schemas.PathId, session: SessionDep, form: FormDep):
     result = attempt(session, lambda: service.add_offer(
-        session, lot_id, schemas.OfferCreate.model_validate(create_data(form, schemas.OfferCreate))))
+        session, lot_id, schemas.OfferCreate.model_validate(create_data(form, schemas.OfferCreate))),
+        conflict_on_form=False)
     if not isinstance(result, Refused):
         if not is_htmx(request):
             return see_other(request, f"/lots/{lot_id}")

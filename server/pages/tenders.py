@@ -57,7 +57,7 @@ def tender_list(request: Request, session: SessionDep):
 def create_tender(request: Request, session: SessionDep, form: FormDep, lists: FormListsDep):
     tables = lists.get("limit_tables", [])
     result = attempt(session, lambda: service.create_tender(
-        session, schemas.TenderCreate.model_validate(_new_tender(form, tables))))
+        session, schemas.TenderCreate.model_validate(_new_tender(form, tables))), conflict_on_form=False)
     if not isinstance(result, Refused):
         return see_other(request, f"/tenders/{result.id}")
     context = views.tender_list(session) | {"form": form | {"limit_tables": tables}, "errors": result.errors}
@@ -97,7 +97,8 @@ def edit_tender(request: Request, tender_id: schemas.PathId, session: SessionDep
 def add_lot(request: Request, tender_id: schemas.PathId, session: SessionDep, form: FormDep, lists: FormListsDep):
     tables = lists.get("limit_tables", [])
     data = create_data(form, schemas.LotCreate) | {"limit_tables": tables}
-    result = attempt(session, lambda: service.add_lot(session, tender_id, schemas.LotCreate.model_validate(data)))
+    result = attempt(session, lambda: service.add_lot(session, tender_id, schemas.LotCreate.model_validate(data)),
+                     conflict_on_form=False)
     if not isinstance(result, Refused):
         if not is_htmx(request):
             return see_other(request, f"/tenders/{tender_id}")

@@ -59,3 +59,14 @@ def test_a_stale_save_keeps_the_stored_values_and_a_frozen_lot_says_why():
     assert isinstance(frozen, Refused) and frozen.status == 409 and frozen.errors == {"form": "the lot is awarded"}
     assert session.rollbacks == 2
 
+
+
+def test_an_add_form_lets_a_conflict_reach_the_error_notice_after_rolling_back():
+    session = _Session()
+    try:
+        attempt(session, _raise(Conflict("the lot is awarded")), conflict_on_form=False)
+    except Conflict as exc:
+        assert exc.message == "the lot is awarded"
+    else:
+        raise AssertionError("the conflict was swallowed")
+    assert session.rollbacks == 1
